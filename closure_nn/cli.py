@@ -1,0 +1,62 @@
+"""Console entry point ``closure-nn``: sub-commands live in closure_nn/commands/, imported lazily
+so that fast commands (point, batch, line) never import Lightning.
+
+Arguments of the form ``key=value`` (no leading dash) are Hydra overrides of the command's config.
+"""
+from __future__ import annotations
+
+import argparse
+import importlib
+import sys
+
+from .physics.checks import InputError
+
+#: command name -> (module, one-line help). Names are our own plain words.
+COMMANDS: dict[str, tuple[str, str]] = {
+    "point": ("closure_nn.commands.point", "solve one condition given on the command line"),
+    "batch": ("closure_nn.commands.batch", "solve every row of a conditions CSV, write a results CSV"),
+    "check-data": ("closure_nn.commands.check_data", "validate a measurement table and convert it to SI"),
+    "synth": ("closure_nn.commands.synth", "sample a design space and write a synthetic training table"),
+    "train": ("closure_nn.commands.train", "pre-train, fine-tune or update a neural closure"),
+    "audit": ("closure_nn.commands.audit", "consistency audit of a dataset and a closure"),
+    "map": ("closure_nn.commands.map", "draw a flow-pattern map, baseline vs learned"),
+    "line": ("closure_nn.commands.line", "march along a line profile: pressure, holdup, pattern, inventory"),
+    "demo": ("closure_nn.commands.demo", "the end-to-end demo on the shipped invented data"),
+}
+
+
+def _split(argv: list[str]) -> tuple[list[str], list[str]]:
+    args, overrides = [], []
+    for a in argv:
+        (overrides if ("=" in a and not a.startswith("-")) else args).append(a)
+    return args, overrides
+
+
+def main(argv: list[str] | None = None) -> int:
+    argv = list(sys.argv[1:] if argv is None else argv)
+    args, overrides = _split(argv)
+    parser = argparse.ArgumentParser(prog="closure-nn", description=__doc__.splitlines()[0])
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    for name, (_, help_) in COMMANDS.items():
+        sub.add_parser(name, help=help_, add_help=False)
+    if not args or args[0] not in COMMANDS:
+        parser.print_help()
+        return 0 if not args or args[0] in ("-h", "--help") else 2
+    name = args[0]
+    module = importlib.import_module(COMMANDS[name][0])
+    cmd_parser = argparse.ArgumentParser(prog=f"closure-nn {name}", description=COMMANDS[name][1],
+                                         epilog="Extra key=value arguments override the command's Hydra config.")
+    module.add_arguments(cmd_parser)
+    ns = cmd_parser.parse_args(args[1:])
+    try:
+        return int(module.run(ns, overrides) or 0)
+    except InputError as exc:
+        print(f"closure-nn {name}: error: {exc}", file=sys.stderr)
+        return 2
+    except FileNotFoundError as exc:
+        print(f"closure-nn {name}: error: file not found: {exc.filename}", file=sys.stderr)
+        return 2
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -1,0 +1,26 @@
+"""Compose the Hydra configs in conf/ with ``key=value`` overrides (no Hydra app, no chdir)."""
+from __future__ import annotations
+
+from pathlib import Path
+
+from .physics.checks import InputError
+
+CONF_DIR = Path(__file__).resolve().parent.parent / "conf"
+
+
+def load_config(name: str, overrides: list[str] | tuple[str, ...] = ()):
+    """Compose ``conf/<name>.yaml`` with Hydra overrides such as ``closure.wall=churchill``.
+
+    Returns an OmegaConf DictConfig. Bad overrides become :class:`InputError`.
+    """
+    from hydra import compose, initialize_config_dir
+    from hydra.errors import HydraException
+    from omegaconf.errors import OmegaConfBaseException
+
+    if not (CONF_DIR / f"{name}.yaml").exists():
+        raise InputError(f"no config {name!r} in {CONF_DIR}")
+    try:
+        with initialize_config_dir(config_dir=str(CONF_DIR), version_base=None):
+            return compose(config_name=name, overrides=list(overrides))
+    except (HydraException, OmegaConfBaseException) as exc:
+        raise InputError(f"config {name}: {str(exc).splitlines()[0]}") from None

@@ -1,0 +1,49 @@
+"""Implicit-function-theorem gradients for roots found without autograd.
+
+If x* solves F(x*, p) = 0 for parameters p, then dx*/dp = -F_p / F_x (implicit function
+theorem; e.g. Krantz & Parks, *The Implicit Function Theorem*, 2002, Thm 3.3.1). We return
+
+.. math:: x = x^* - \frac{F(x^*, p) - \mathrm{sg}[F(x^*, p)]}{\mathrm{sg}[F_x(x^*, p)]}
+
+where sg[.] stops the gradient. Its value is exactly x*, its first derivative with respect to
+every tensor p that F depends on is -F_p/F_x, and the root-finding iterations are never
+differentiated.
+"""
+from __future__ import annotations
+
+from typing import Callable
+
+import torch
+
+
+def attach_implicit_grad(x_star: torch.Tensor, residual: Callable[[torch.Tensor], torch.Tensor]) -> torch.Tensor:
+    """Return ``x_star`` carrying implicit gradients of the root of ``residual``.
+
+    Parameters
+    ----------
+    x_star : tensor (*batch)
+        Converged roots, any dtype; detached on entry.
+    residual : callable
+        ``residual(x) -> F`` of the same shape, elementwise in x (state i's residual depends
+        only on x[i]), built from tensors that may require grad.
+
+    Returns
+    -------
+    tensor (*batch): equal in value to ``x_star``; differentiable w.r.t. whatever ``residual``
+    depends on. Where no gradient is needed (``torch.no_grad`` or nothing requires grad) it is
+    ``x_star`` itself. Where F_x vanishes the gradient is zeroed rather than made infinite.
+    """
+    x0 = x_star.detach()
+    if not torch.is_grad_enabled():
+        return x0
+    x = x0.clone().requires_grad_(True)
+    F = residual(x)
+    if not F.requires_grad:
+        return x0
+    (F_x,) = torch.autograd.grad(F, x, torch.ones_like(F), retain_graph=True)
+    # F - sg[F] is zero in value; its gradient w.r.t. p is F_p. (It also reaches the private
+    # leaf x, which no caller reads.)
+    F_p = F - F.detach()
+    safe = torch.where(F_x.abs() > 0, F_x, torch.ones_like(F_x))
+    corr = torch.where(F_x.abs() > 0, F_p / safe.detach(), torch.zeros_like(F_p))
+    return x0 - corr

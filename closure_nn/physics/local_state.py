@@ -1,0 +1,80 @@
+r"""The local state of separated flow at a trial liquid level or film thickness.
+
+A :class:`LocalState` bundles conditions, cross-section geometry and the in-situ phase
+velocities and Reynolds numbers at one value of ``frac`` (h/D or delta/D). Closures receive it,
+so they can be evaluated for ANY trial holdup inside the root finder, not only a measured one.
+
+In-situ velocities (mass conservation, e.g. Taitel & Dukler 1976, eq. 2):
+
+.. math:: u_L = \frac{(1-E)\,v_{SL} A}{A_L},\qquad u_G = \frac{(v_{SG} + E\,v_{SL}) A}{A_G}
+
+with E the entrained liquid fraction (annular flow only; droplets travel with the gas at no
+slip, so the core density is :math:`\rho_C = (\rho_G v_{SG} + \rho_L E v_{SL})/(v_{SG} + E v_{SL})`).
+For stratified flow E = 0 and rho_C = rho_G.
+
+Phase Reynolds numbers on hydraulic diameters (Taitel & Dukler 1976, eqs. 5-6):
+:math:`Re_L = \rho_L u_L D_L/\mu_L`, :math:`Re_G = \rho_C u_G D_G/\mu_G`.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import torch
+
+from .conditions import Conditions
+from .geometry import ANNULAR, SeparatedGeometry, separated
+
+_TINY = 1e-300
+
+
+@dataclass(frozen=True)
+class LocalState:
+    """Conditions + geometry + in-situ kinematics at one trial ``frac`` (all ``(*batch)``)."""
+
+    cond: Conditions
+    geom: SeparatedGeometry
+    entrainment: torch.Tensor  # E [-], 0 for stratified
+    u_L: torch.Tensor  # in-situ liquid (film) velocity [m/s]
+    u_G: torch.Tensor  # in-situ gas (core) velocity [m/s]
+    rho_core: torch.Tensor  # gas or gas-droplet core density [kg/m3]
+
+    @property
+    def kind(self) -> str:
+        return self.geom.kind
+
+    @property
+    def Re_L(self) -> torch.Tensor:
+        """Liquid Reynolds number on D_L [-]."""
+        return self.cond.rhol * self.u_L * self.geom.D_L / self.cond.mul
+
+    @property
+    def Re_G(self) -> torch.Tensor:
+        """Gas (core) Reynolds number on D_G [-]."""
+        return self.rho_core * self.u_G * self.geom.D_G / self.cond.mug
+
+    @property
+    def holdup(self) -> torch.Tensor:
+        """Liquid holdup H_L [-]: layer or film area fraction plus entrained liquid in the core."""
+        core_liquid = self.cond.rhol * 0  # zero tensor of the right shape
+        if self.kind == ANNULAR:
+            q_e = self.entrainment * self.cond.vsl
+            core_liquid = q_e / (self.cond.vsg + q_e).clamp_min(_TINY)
+        return self.geom.liquid_fraction + (1 - self.geom.liquid_fraction) * core_liquid
+
+
+def local_state(cond: Conditions, frac: torch.Tensor, kind: str, entrainment: torch.Tensor | float = 0.0) -> LocalState:
+    """Build the :class:`LocalState` at ``frac`` (h/D or delta/D, broadcastable to cond).
+
+    ``entrainment`` E [-] is only used for ``kind == 'annular'``.
+    """
+    geom = separated(kind, frac, cond.D)
+    A = cond.area
+    E = torch.as_tensor(entrainment, dtype=torch.float64) * (1.0 if kind == ANNULAR else 0.0)
+    E = E * torch.ones_like(frac)
+    q_e = E * cond.vsl  # entrained liquid flux, m/s superficial
+    u_L = (cond.vsl - q_e) * A / geom.A_L
+    core_flux = cond.vsg + q_e
+    u_G = core_flux * A / geom.A_G
+    rho_core = (cond.rhog * cond.vsg + cond.rhol * q_e) / core_flux.clamp_min(_TINY)
+    rho_core = torch.where(core_flux > 0, rho_core, cond.rhog * torch.ones_like(rho_core))
+    return LocalState(cond=cond, geom=geom, entrainment=E, u_L=u_L, u_G=u_G, rho_core=rho_core)

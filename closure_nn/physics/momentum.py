@@ -1,0 +1,125 @@
+r"""Steady, fully developed two-fluid momentum balances of separated flow.
+
+Sign convention: x along the pipe in the flow direction, inclination theta positive upward,
+stresses positive when they oppose the flow of the phase they act on; the interfacial stress
+tau_i is positive when the gas drags the liquid forward (u_G > u_L). ``pgrad`` denotes
+-dp/dx [Pa/m], positive when pressure falls along the flow.
+
+Phase balances (Taitel & Dukler 1976, AIChE J. 22(1):47-55, eqs. 1-2):
+
+.. math::
+    \text{liquid:}\quad -A_L\frac{dp}{dx} - \tau_{WL} S_L + \tau_i S_i - \rho_L A_L g\sin\theta = 0
+
+    \text{gas:}\quad -A_G\frac{dp}{dx} - \tau_{WG} S_G - \tau_i S_i - \rho_G A_G g\sin\theta = 0
+
+Eliminating dp/dx gives the combined equation (ibid., eq. 3) whose roots in h/D are the
+equilibrium liquid levels. Shear stresses come from Fanning friction factors (ibid., eq. 4).
+"""
+from __future__ import annotations
+
+from typing import NamedTuple
+
+import torch
+
+from .local_state import LocalState
+
+
+class FrictionFactors(NamedTuple):
+    """Fanning friction factors of a separated-flow state [-], each shaped ``(*batch)``."""
+
+    f_wl: torch.Tensor
+    f_wg: torch.Tensor
+    f_i: torch.Tensor
+
+
+class Stresses(NamedTuple):
+    """Wall and interfacial shear stresses [Pa]."""
+
+    tau_wl: torch.Tensor
+    tau_wg: torch.Tensor
+    tau_i: torch.Tensor
+
+
+def shear_stresses(s: LocalState, f: FrictionFactors) -> Stresses:
+    r"""Shear stresses from friction factors (Taitel & Dukler 1976, eq. 4):
+
+    .. math::
+        \tau_{WL} = \tfrac12 f_{WL}\rho_L u_L|u_L|,\quad
+        \tau_{WG} = \tfrac12 f_{WG}\rho_G u_G|u_G|,\quad
+        \tau_i = \tfrac12 f_i \rho_G (u_G - u_L)|u_G - u_L|
+
+    rho_G is the core density in annular flow with entrainment. Units: [Pa].
+    """
+    du = s.u_G - s.u_L
+    return Stresses(
+        tau_wl=0.5 * f.f_wl * s.cond.rhol * s.u_L * s.u_L.abs(),
+        tau_wg=0.5 * f.f_wg * s.rho_core * s.u_G * s.u_G.abs(),
+        tau_i=0.5 * f.f_i * s.rho_core * du * du.abs(),
+    )
+
+
+def liquid_residual(s: LocalState, tau: Stresses, pgrad: torch.Tensor) -> torch.Tensor:
+    r"""Liquid momentum residual per unit length [N/m3 x m2 = N/m]:
+
+    .. math:: R_L = A_L\,\mathrm{pgrad} - \tau_{WL} S_L + \tau_i S_i - \rho_L A_L g\sin\theta
+
+    with pgrad = -dp/dx [Pa/m]. Zero at a consistent state.
+    """
+    c, g = s.cond, s.geom
+    return g.A_L * pgrad - tau.tau_wl * g.S_L + tau.tau_i * g.S_i - c.rhol * g.A_L * c.g * torch.sin(c.theta)
+
+
+def gas_residual(s: LocalState, tau: Stresses, pgrad: torch.Tensor) -> torch.Tensor:
+    r"""Gas (core) momentum residual per unit length [N/m]:
+
+    .. math:: R_G = A_G\,\mathrm{pgrad} - \tau_{WG} S_G - \tau_i S_i - \rho_G A_G g\sin\theta
+    """
+    c, g = s.cond, s.geom
+    return g.A_G * pgrad - tau.tau_wg * g.S_G - tau.tau_i * g.S_i - s.rho_core * g.A_G * c.g * torch.sin(c.theta)
+
+
+def combined_residual(s: LocalState, tau: Stresses) -> torch.Tensor:
+    r"""Combined momentum equation, pressure gradient eliminated [Pa/m]:
+
+    .. math::
+        F = \tau_{WG}\frac{S_G}{A_G} - \tau_{WL}\frac{S_L}{A_L}
+            + \tau_i S_i\left(\frac{1}{A_L} + \frac{1}{A_G}\right) - (\rho_L - \rho_G) g \sin\theta
+
+    Source: Taitel & Dukler (1976), eq. 3 (= R_L/A_L - R_G/A_G). Its roots in 0 < h/D < 1 are
+    the equilibrium liquid levels. F -> -inf as h/D -> 0 and +inf as h/D -> 1 for positive
+    rates, so an odd number of roots exists.
+    """
+    c, g = s.cond, s.geom
+    return (
+        tau.tau_wg * g.S_G / g.A_G
+        - tau.tau_wl * g.S_L / g.A_L
+        + tau.tau_i * g.S_i * (1 / g.A_L + 1 / g.A_G)
+        - (c.rhol - s.rho_core) * c.g * torch.sin(c.theta)
+    )
+
+
+class PressureGradient(NamedTuple):
+    """-dp/dx [Pa/m] and its parts (total = friction + gravity)."""
+
+    total: torch.Tensor
+    friction: torch.Tensor
+    gravity: torch.Tensor
+
+
+def pressure_gradient(s: LocalState, tau: Stresses) -> PressureGradient:
+    r"""Pressure gradient of a solved separated state, split into friction and gravity.
+
+    Adding the two phase balances (mixture momentum):
+
+    .. math::
+        -\frac{dp}{dx} = \underbrace{\frac{\tau_{WL} S_L + \tau_{WG} S_G}{A}}_{\text{friction}}
+          + \underbrace{\frac{\rho_L A_L + \rho_G A_G}{A}\, g\sin\theta}_{\text{gravity}}
+
+    Interfacial shear cancels. At a root of :func:`combined_residual` this equals each phase
+    balance solved for dp/dx. Acceleration is neglected (steady, incompressible locally).
+    """
+    c, g = s.cond, s.geom
+    A = g.area
+    fric = (tau.tau_wl * g.S_L + tau.tau_wg * g.S_G) / A
+    grav = (c.rhol * g.A_L + s.rho_core * g.A_G) / A * c.g * torch.sin(c.theta)
+    return PressureGradient(total=fric + grav, friction=fric, gravity=grav)
