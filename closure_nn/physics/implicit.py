@@ -36,14 +36,13 @@ def attach_implicit_grad(x_star: torch.Tensor, residual: Callable[[torch.Tensor]
     x0 = x_star.detach()
     if not torch.is_grad_enabled():
         return x0
-    x = x0.clone().requires_grad_(True)
-    F = residual(x)
-    if not F.requires_grad:
+    F0 = residual(x0)  # graph to the parameters only
+    if not F0.requires_grad:
         return x0
-    (F_x,) = torch.autograd.grad(F, x, torch.ones_like(F), retain_graph=True)
-    # F - sg[F] is zero in value; its gradient w.r.t. p is F_p. (It also reaches the private
-    # leaf x, which no caller reads.)
-    F_p = F - F.detach()
-    safe = torch.where(F_x.abs() > 0, F_x, torch.ones_like(F_x))
-    corr = torch.where(F_x.abs() > 0, F_p / safe.detach(), torch.zeros_like(F_p))
-    return x0 - corr
+    x = x0.clone().requires_grad_(True)
+    (F_x,) = torch.autograd.grad(residual(x), x, torch.ones_like(F0))
+    # F0 - sg[F0] is zero in value; its gradient w.r.t. the parameters is F_p
+    F_p = F0 - F0.detach()
+    nonzero = F_x != 0
+    safe = torch.where(nonzero, F_x, torch.ones_like(F_x))
+    return x0 - torch.where(nonzero, F_p / safe, torch.zeros_like(F_p))

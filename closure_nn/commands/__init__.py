@@ -1,0 +1,1 @@
+"""CLI sub-commands; each module has ``add_arguments(parser)`` and ``run(args, overrides)``."""
