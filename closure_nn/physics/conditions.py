@@ -32,10 +32,9 @@ FIELD_NAMES = ("vsl", "vsg", "D", "theta", "roughness", "rhol", "rhog", "mul", "
 
 
 def _as_tensor(x: object) -> torch.Tensor:
-    t = torch.as_tensor(x)
-    if not torch.is_floating_point(t) or t.dtype != torch.float64:
-        t = t.to(torch.float64)
-    return t
+    if isinstance(x, torch.Tensor):
+        return x if x.dtype == torch.float64 else x.to(torch.float64)
+    return torch.as_tensor(x, dtype=torch.float64)
 
 
 @dataclass(frozen=True)

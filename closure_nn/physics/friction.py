@@ -51,7 +51,8 @@ def fanning_churchill(Re: torch.Tensor, eD: torch.Tensor | float = 0.0) -> torch
     Re = Re.clamp_min(_RE_FLOOR)
     eD = torch.as_tensor(eD, dtype=Re.dtype)
     inner = (7.0 / Re).pow(0.9) + 0.27 * eD
-    logA = 16 * torch.log(2.457 * torch.log(1.0 / inner))
+    # below Re ~ 10 the log turns negative: A -> 0 there, where (8/Re)^12 dominates anyway
+    logA = 16 * torch.log((2.457 * torch.log(1.0 / inner)).clamp_min(1e-300))
     logB = 16 * torch.log(37530.0 / Re)
     log_ab = torch.logaddexp(logA, logB)
     # (8/Re)^12 + (A+B)^-1.5 in log space
