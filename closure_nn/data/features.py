@@ -1,0 +1,200 @@
+r"""Closure features of a training table: conditions, measured states, scaler and training domain.
+
+A training table (see the data contract in :mod:`closure_nn.data.schema`) holds one operating
+point per row. For the neural closure we need, per row,
+
+* the :class:`~closure_nn.physics.conditions.Conditions` (SI columns ``vsl ... sigma``),
+* the separated-flow configuration the row belongs to (``kind``: stratified, annular or none,
+  from the observed ``pattern``),
+* the local state at the MEASURED holdup (h/D from the holdup, :func:`frac_from_holdup`) or, where
+  no holdup was measured, at the baseline equilibrium,
+
+and from the features of those states
+
+* a :class:`FeatureScaler` (mean / standard deviation per feature, ``z = (x - mean) / std``), and
+* a :class:`TrainingDomain`: per-feature bounds and a nearest-neighbour distance threshold in the
+  standardised space. A query point is "in domain" when it lies inside the bounds AND within the
+  threshold of some training point. The threshold is ``factor`` times the ``quantile`` of the
+  leave-one-out nearest-neighbour distances among the training points (default 2 x the 95th
+  percentile) - a common-practice rule for distance-based applicability domains, our choice of
+  constants.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+import torch
+
+from ..closures.neural import domain_mask
+from ..physics.conditions import Conditions
+from ..physics.geometry import ANNULAR, STRATIFIED, h_from_holdup
+from ..physics.groups import FEATURE_NAMES, closure_features
+from ..physics.holdup_roots import solve_separated
+from ..physics.local_state import local_state
+from ..physics.vocabulary import ANNULAR as ANNULAR_PATTERN, STRATIFIED_PATTERNS
+from .schema import to_conditions
+
+#: integer code of the separated configuration of a row (-1: not a separated-flow row)
+KIND_CODE = {STRATIFIED: 0, ANNULAR: 1}
+KINDS = (STRATIFIED, ANNULAR)
+UNKNOWN_PATTERN_RULES = ("skip", "stratified")
+
+
+def table_conditions(df: pd.DataFrame) -> Conditions:
+    """Conditions ``(N,)`` of an SI training table (:func:`closure_nn.data.schema.to_conditions`)."""
+    return to_conditions(df, check=True, where=str(df.attrs.get("path", "training table")))
+
+
+def kind_codes(patterns: pd.Series | None, n: int, unknown_pattern: str = "skip") -> torch.Tensor:
+    """Separated configuration per row, ``(N,)`` int64 codes of :data:`KIND_CODE` or -1.
+
+    ``stratified_smooth``/``stratified_wavy`` -> stratified, ``annular`` -> annular, any other
+    pattern -> -1. A missing pattern (NaN / empty) follows ``unknown_pattern``: ``'skip'`` (-1,
+    the row feeds no separated-flow term) or ``'stratified'``.
+    """
+    if unknown_pattern not in UNKNOWN_PATTERN_RULES:
+        raise ValueError(f"unknown_pattern must be one of {UNKNOWN_PATTERN_RULES}, got {unknown_pattern!r}")
+    if patterns is None:
+        patterns = pd.Series([None] * n)
+    out = np.full(n, -1, dtype=np.int64)
+    for i, p in enumerate(patterns.tolist()):
+        if p is None or (isinstance(p, float) and np.isnan(p)) or p == "":
+            out[i] = KIND_CODE[STRATIFIED] if unknown_pattern == "stratified" else -1
+        elif p in STRATIFIED_PATTERNS:
+            out[i] = KIND_CODE[STRATIFIED]
+        elif p == ANNULAR_PATTERN:
+            out[i] = KIND_CODE[ANNULAR]
+    return torch.as_tensor(out)
+
+
+def frac_from_holdup(holdup: torch.Tensor, kind: str) -> torch.Tensor:
+    r"""h/D (stratified) or delta/D (annular film, no entrainment) from the holdup A_L/A [-].
+
+    Stratified: :func:`closure_nn.physics.geometry.h_from_holdup`. Annular: inverting
+    :math:`A_L/A = 4(\tilde\delta - \tilde\delta^2)` (geometry module docstring) gives
+    :math:`\tilde\delta = (1 - \sqrt{1 - H_L})/2`. Entrained liquid is neglected here.
+    """
+    H = holdup.clamp(1e-12, 1 - 1e-12)
+    if kind == STRATIFIED:
+        return h_from_holdup(H)
+    return (1 - torch.sqrt(1 - H)) / 2
+
+
+def state_features(df: pd.DataFrame, baseline, unknown_pattern: str = "skip") -> torch.Tensor:
+    """Closure features ``(M, F)`` of the separated-flow rows of a table.
+
+    At the measured holdup where there is one, else at the ``baseline`` closure's equilibrium
+    (thinnest root). Rows that are not separated flow (or whose equilibrium is not found) are
+    left out. Used to fit the scaler and the training domain.
+    """
+    cond = table_conditions(df)
+    kinds = kind_codes(df["pattern"] if "pattern" in df.columns else None, len(df), unknown_pattern)
+    holdup = torch.as_tensor(df["holdup"].to_numpy(dtype=np.float64)) if "holdup" in df.columns \
+        else torch.full((len(df),), float("nan"), dtype=torch.float64)
+    feats = []
+    with torch.no_grad():
+        for kind in KINDS:
+            sel = kinds == KIND_CODE[kind]
+            meas = sel & torch.isfinite(holdup)
+            if meas.any():
+                s = local_state(cond[meas], frac_from_holdup(holdup[meas], kind), kind)
+                feats.append(closure_features(s))
+            solve = sel & ~torch.isfinite(holdup)
+            if solve.any():
+                sol = solve_separated(cond[solve], baseline, kind)
+                feats.append(closure_features(sol.state)[sol.found])
+    if not feats:
+        return torch.zeros(0, len(FEATURE_NAMES), dtype=torch.float64)
+    x = torch.cat(feats)
+    return x[torch.isfinite(x).all(dim=-1)]
+
+
+@dataclass
+class FeatureScaler:
+    """Per-feature standardisation ``z = (x - mean) / std`` (each ``(F,)``)."""
+
+    mean: torch.Tensor
+    std: torch.Tensor
+    names: tuple[str, ...] = FEATURE_NAMES
+
+    @classmethod
+    def fit(cls, x: torch.Tensor) -> "FeatureScaler":
+        """Fit on features ``(N, F)``. A (nearly) constant feature keeps std = 1 so it passes unscaled."""
+        if x.shape[0] == 0:
+            raise ValueError("cannot fit a feature scaler on zero separated-flow rows")
+        mean = x.mean(dim=0)
+        std = x.std(dim=0, unbiased=False) if x.shape[0] > 1 else torch.ones_like(mean)
+        const = std <= 1e-9 * mean.abs().clamp_min(1.0)
+        return cls(mean=mean, std=torch.where(const, torch.ones_like(std), std))
+
+    def transform(self, x: torch.Tensor) -> torch.Tensor:
+        return (x - self.mean) / self.std
+
+    def to_dict(self) -> dict:
+        return {"names": list(self.names), "mean": self.mean.tolist(), "std": self.std.tolist()}
+
+    @classmethod
+    def from_dict(cls, d: dict) -> "FeatureScaler":
+        return cls(mean=torch.tensor(d["mean"], dtype=torch.float64), std=torch.tensor(d["std"], dtype=torch.float64),
+                   names=tuple(d["names"]))
+
+
+@dataclass
+class TrainingDomain:
+    """Bounds ``lo, hi (F,)`` and reference points ``(M, F)``, all in standardised units."""
+
+    lo: torch.Tensor
+    hi: torch.Tensor
+    points: torch.Tensor
+    threshold: float
+    names: tuple[str, ...] = FEATURE_NAMES
+    rule: dict = field(default_factory=dict)
+
+    @classmethod
+    def fit(cls, x: torch.Tensor, scaler: FeatureScaler, max_points: int = 1000, quantile: float = 0.95,
+            factor: float = 2.0, seed: int = 0) -> "TrainingDomain":
+        """Fit on raw features ``(N, F)``; at most ``max_points`` points (seeded subsample) are kept."""
+        z = scaler.transform(x)
+        if z.shape[0] > max_points:
+            idx = torch.randperm(z.shape[0], generator=torch.Generator().manual_seed(seed))[:max_points]
+            z = z[idx.sort().values]
+        if z.shape[0] >= 2:
+            d = torch.cdist(z, z)
+            d.fill_diagonal_(torch.inf)
+            nn_d = d.min(dim=1).values
+            threshold = factor * float(torch.quantile(nn_d, quantile))
+        else:
+            threshold = 0.0
+        return cls(lo=z.min(dim=0).values, hi=z.max(dim=0).values, points=z, threshold=threshold,
+                   rule={"quantile": quantile, "factor": factor, "max_points": max_points})
+
+    def merged(self, other: "TrainingDomain", max_points: int | None = None, seed: int = 0) -> "TrainingDomain":
+        """Union with another domain in the same standardised space (fine-tuning, updates)."""
+        pts = torch.cat([self.points, other.points])
+        cap = max_points or int(self.rule.get("max_points", 1000))
+        if pts.shape[0] > cap:
+            idx = torch.randperm(pts.shape[0], generator=torch.Generator().manual_seed(seed))[:cap]
+            pts = pts[idx.sort().values]
+        return TrainingDomain(lo=torch.minimum(self.lo, other.lo), hi=torch.maximum(self.hi, other.hi), points=pts,
+                              threshold=max(self.threshold, other.threshold), names=self.names, rule=dict(self.rule))
+
+    def in_domain(self, x: torch.Tensor, scaler: FeatureScaler, margin: float = 0.0) -> torch.Tensor:
+        """Bool mask ``(*batch)`` for raw features ``(*batch, F)``."""
+        return domain_mask(scaler.transform(x), self.lo, self.hi, self.points, torch.tensor(self.threshold), margin)
+
+    def apply_to(self, closure) -> None:
+        """Store this domain in a :class:`~closure_nn.closures.neural.NeuralClosure`'s buffers."""
+        closure.set_domain(self.lo, self.hi, self.points, self.threshold)
+
+    @classmethod
+    def from_closure(cls, closure) -> "TrainingDomain":
+        return cls(lo=closure.domain_lo.clone(), hi=closure.domain_hi.clone(), points=closure.domain_points.clone(),
+                   threshold=float(closure.domain_threshold))
+
+    def to_dict(self) -> dict:
+        """Readable summary for bundle metadata (the points themselves travel in the weights)."""
+        return {"names": list(self.names), "lo": self.lo.tolist(), "hi": self.hi.tolist(),
+                "n_points": int(self.points.shape[0]), "nn_threshold": self.threshold, "rule": self.rule,
+                "units": "standardised features z = (x - mean) / std"}
