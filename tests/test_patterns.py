@@ -8,6 +8,7 @@ from __future__ import annotations
 import collections
 import math
 
+import fluids.two_phase as fluids_two_phase
 import numpy as np
 import pytest
 import torch
@@ -23,14 +24,12 @@ from closure_nn.physics.patterns import (
 )
 from closure_nn.physics.vocabulary import CODE, PATTERNS
 
-import fluids.two_phase as fluids_two_phase  # noqa: E402  (test dependency, pyproject [test])
-
 TD_CLOSURE = BaselineClosure(wall="taitel_dukler", interface="smooth")
 FLUIDS_NAMES = {
     "annular": "annular", "bubbly": "dispersed_bubble", "intermittent": "intermittent",
     "stratified wavy": "stratified_wavy", "stratified smooth": "stratified_smooth",
 }
-#: agreement with fluids measured at 95.5 % on 2000 states (seed 1) when this test was written
+#: measured when this test was written: 95.8 % on these 1200 states, 95.5 % on 2000 (same seed)
 FLUIDS_AGREEMENT_FLOOR = 0.92
 
 
