@@ -27,7 +27,7 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     from omegaconf import OmegaConf
 
     from ..data.table_io import read_table, write_table
-    from ..data.validate import validate_table
+    from ..data.validate import REASON_SEP, validate_table
 
     cfg = load_config("check_data", overrides)
     if cfg.unknown_columns not in ("keep", "drop"):
@@ -52,7 +52,7 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     for w in res.warnings:
         print(f"  warning: {w}")
     if len(res.rejected):
-        first = str(res.rejected["reason"].iloc[0]).split("; ")[0]
+        first = str(res.rejected["reason"].iloc[0]).split(REASON_SEP)[0]
         print(f"  first problem: {first}")
     print(f"SI table: {data_path}")
     print(f"rejected rows: {paths['rejected']}; summary: {paths['summary']}")

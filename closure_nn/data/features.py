@@ -32,7 +32,7 @@ from ..physics.conditions import Conditions
 from ..physics.geometry import ANNULAR, STRATIFIED, h_from_holdup
 from ..physics.groups import FEATURE_NAMES, closure_features
 from ..physics.holdup_roots import solve_separated
-from ..physics.local_state import local_state
+from ..physics.local_state import LocalState, local_state
 from ..physics.vocabulary import ANNULAR as ANNULAR_PATTERN, STRATIFIED_PATTERNS
 from .schema import to_conditions
 
@@ -82,29 +82,38 @@ def frac_from_holdup(holdup: torch.Tensor, kind: str) -> torch.Tensor:
     return (1 - torch.sqrt(1 - H)) / 2
 
 
-def state_features(df: pd.DataFrame, baseline, unknown_pattern: str = "skip") -> torch.Tensor:
-    """Closure features ``(M, F)`` of the separated-flow rows of a table.
+def table_states(df: pd.DataFrame, baseline, unknown_pattern: str = "skip") -> list[LocalState]:
+    """Local states of the separated-flow rows of a table, one :class:`LocalState` per kind and source.
 
     At the measured holdup where there is one, else at the ``baseline`` closure's equilibrium
-    (thinnest root). Rows that are not separated flow (or whose equilibrium is not found) are
-    left out. Used to fit the scaler and the training domain.
+    (thinnest root; rows without a root are left out). Rows that are not separated flow are
+    left out. No gradients.
     """
     cond = table_conditions(df)
     kinds = kind_codes(df["pattern"] if "pattern" in df.columns else None, len(df), unknown_pattern)
-    holdup = torch.as_tensor(df["holdup"].to_numpy(dtype=np.float64)) if "holdup" in df.columns \
-        else torch.full((len(df),), float("nan"), dtype=torch.float64)
-    feats = []
+    holdup = torch.tensor(pd.to_numeric(df["holdup"], errors="coerce").to_numpy(dtype=np.float64)) \
+        if "holdup" in df.columns else torch.full((len(df),), float("nan"), dtype=torch.float64)
+    states: list[LocalState] = []
     with torch.no_grad():
         for kind in KINDS:
             sel = kinds == KIND_CODE[kind]
             meas = sel & torch.isfinite(holdup)
             if meas.any():
-                s = local_state(cond[meas], frac_from_holdup(holdup[meas], kind), kind)
-                feats.append(closure_features(s))
+                states.append(local_state(cond[meas], frac_from_holdup(holdup[meas], kind), kind))
             solve = sel & ~torch.isfinite(holdup)
             if solve.any():
                 sol = solve_separated(cond[solve], baseline, kind)
-                feats.append(closure_features(sol.state)[sol.found])
+                if sol.found.any():
+                    states.append(local_state(cond[solve][sol.found], sol.frac[sol.found], kind))
+    return states
+
+
+def state_features(df: pd.DataFrame, baseline, unknown_pattern: str = "skip") -> torch.Tensor:
+    """Closure features ``(M, F)`` at the :func:`table_states` of a table (finite rows only).
+
+    Used to fit the scaler and the training domain.
+    """
+    feats = [closure_features(s) for s in table_states(df, baseline, unknown_pattern)]
     if not feats:
         return torch.zeros(0, len(FEATURE_NAMES), dtype=torch.float64)
     x = torch.cat(feats)

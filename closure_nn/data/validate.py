@@ -55,6 +55,8 @@ CHECKS: dict[str, str] = {
     "duplicate": "row repeats an earlier row",
     "duplicate_run_id": "run_id repeats within its source and campaign",
 }
+#: separates the messages of one row in the ``reason`` column
+REASON_SEP = " | "
 #: trade words that are not in our vocabulary -> the label we use for them
 PATTERN_SYNONYMS: dict[str, str] = {
     "slug": "intermittent", "churn": "intermittent", "elongated_bubble": "intermittent",
@@ -73,7 +75,8 @@ class ValidationResult:
 
     ``clean``: accepted rows, SI, canonical columns (always :data:`~closure_nn.data.schema.ALWAYS`),
     fresh 0-based index. ``rejected``: ``data_row`` (1-based), ``file_line`` (CSV only),
-    ``check`` (codes of :data:`CHECKS`, comma-separated), ``reason`` (the messages), then the row's
+    ``check`` (codes of :data:`CHECKS`, comma-separated), ``reason`` (the messages, separated by
+    :data:`REASON_SEP`), then the row's
     values in SI. ``warnings``: fixes and tolerated oddities, one sentence each.
     """
 
@@ -109,7 +112,7 @@ class ValidationResult:
                 shown = ", ".join(str(r) for r in rows[:8]) + (", ..." if len(rows) > 8 else "")
                 lines.append(f"  {code:<17s} {n:6d} row(s)  {CHECKS.get(code, '')} (data rows {shown})")
             lines.append(f"first messages (all in rejected.csv, values there in SI):")
-            msgs = [m for r in self.rejected["reason"] for m in str(r).split("; ")]
+            msgs = [m for r in self.rejected["reason"] for m in str(r).split(REASON_SEP)]
             lines += [f"  {m}" for m in msgs[:max_messages]]
             if len(msgs) > max_messages:
                 lines.append(f"  ... and {len(msgs) - max_messages} more")
@@ -155,14 +158,17 @@ def _unit(u: str) -> str:
     return "" if u in ("", "-") else f" {u}"
 
 
+def _bare(name: str) -> str:
+    """'D (mm)' -> 'D': a header whose unit is in parentheses instead of brackets."""
+    return re.sub(r"\s*[\(\{].*$", "", name).strip()
+
+
 def _nearest(name: str, candidates, cutoff: float = 0.6) -> str | None:
+    """The candidate closest to ``name``: same name ignoring case or a parenthesised unit, else difflib."""
     cands = list(candidates)
-    low = {c.lower(): c for c in cands}
-    if name.lower() in low:
-        return low[name.lower()]
-    bare = re.sub(r"\s*[\(\{].*$", "", name).strip()  # 'D (mm)' -> 'D'
-    if bare in cands:
-        return bare
+    for c in cands:
+        if c.lower() == name.lower() or _bare(c) == name or c == _bare(name):
+            return c
     m = difflib.get_close_matches(name, cands, n=1, cutoff=cutoff)
     return m[0] if m else None
 
@@ -226,7 +232,7 @@ def _check_numeric(df: pd.DataFrame, spec: ColumnSpec, pr: _Problems, typebad: n
         if spec.name == "holdup":
             check, text = "holdup", f"{pr.typed(spec.name, x)} is outside [0, 1]"
         elif not math.isfinite(x) or (spec.positive and x <= 0) or (lo == 0 and x < 0):
-            need = "> 0" if spec.positive else ">= 0" if lo == 0 else f"in {rng}"
+            need = "finite" if not math.isfinite(x) else "> 0" if spec.positive else ">= 0" if lo == 0 else f"in {rng}"
             check, text = "nonphysical", f"{pr.typed(spec.name, x)} is non-physical (must be {need}; expected {rng})"
         else:
             check, text = "range", f"{pr.typed(spec.name, x)} is outside the expected range {rng}{note}"
@@ -375,7 +381,7 @@ def validate_table(df: pd.DataFrame, path: str | Path | None = None, unknown: st
     if first_line is not None:
         head["file_line"] = bad_rows + first_line
     head["check"] = [",".join(dict.fromkeys(c for c, _ in pr.rows[i])) for i in bad_rows]
-    head["reason"] = ["; ".join(m for _, m in pr.rows[i]) for i in bad_rows]
+    head["reason"] = [REASON_SEP.join(m for _, m in pr.rows[i]) for i in bad_rows]
     rejected = pd.concat([pd.DataFrame(head), rej], axis=1)
     rejected.attrs = {}
     return ValidationResult(clean=clean, rejected=rejected, warnings=notes, path=path, n_rows=n,
