@@ -167,14 +167,18 @@ def solve_points(
         pattern = torch.where(gas_only, V.CODE[V.SINGLE_PHASE_GAS], torch.where(liq_only, V.CODE[V.SINGLE_PHASE_LIQUID], pattern))
         flags = torch.where(single, FLAG_SINGLE_PHASE, flags)
 
-    sep_codes = torch.tensor([V.CODE[p] for p in V.SEPARATED])
-    separated = torch.isin(pattern, sep_codes) & ((flags & (FLAG_NO_SEPARATED_ROOT | FLAG_SINGLE_PHASE)) == 0)
+    # which rows got their holdup from a two-fluid equilibrium
+    strat_rows = torch.isin(pattern, torch.tensor([V.CODE[p] for p in V.STRATIFIED_PATTERNS]))
+    ann_rows = pattern == V.CODE[V.ANNULAR]
+    strat_ok = strat.found
+    ann_ok = ann_rows & ((flags & FLAG_ANNULAR_NO_ROOT) == 0)
+    separated = ((strat_rows | ann_rows) & strat_ok) | ann_ok
+    # a separated pattern without any equilibrium has no holdup: NaN, flagged
+    no_eq = (strat_rows | ann_rows) & ~separated
+    holdup = torch.where(no_eq, float("nan"), holdup)
+    pg = PressureGradient(*(torch.where(no_eq, float("nan"), x) for x in pg))
     n_roots = torch.where(single, 0, strat.n_roots)
     roots = torch.where(single[:, None], float("nan"), strat.roots)
     frac = torch.where(separated, frac, float("nan"))
-    # a separated pattern without an equilibrium has no holdup: NaN, flagged
-    no_eq = torch.isin(pattern, sep_codes) & ((flags & FLAG_NO_SEPARATED_ROOT) != 0)
-    holdup = torch.where(no_eq, float("nan"), holdup)
-    pg = PressureGradient(*(torch.where(no_eq, float("nan"), x) for x in pg))
     return PointResult(holdup=holdup, pgrad=pg, pattern=pattern, n_roots=n_roots, roots=roots,
                        frac=frac, separated=separated, flags=flags.to(torch.int64))
