@@ -120,3 +120,13 @@ def test_text_numbers_in_provenance_stay_text(tmp_path):
     df = read_table(p)
     assert df["run_id"][0] == "007" and df["campaign"][0] == "12"
     assert math.isclose(df["vsl"][0], 0.1)
+
+
+def test_to_conditions_on_unvalidated_table_names_bad_cell(tmp_path):
+    p = tmp_path / "raw.csv"
+    p.write_text("vsl,vsg,D,theta,roughness,rhol,rhog,mul,mug,sigma\n"
+                 "0.1,2,0.05,0,0,998,1.2,0.001,1.8e-5,0.072\n0.1,2,0.05,0,0,998,1.2,1 cP,1.8e-5,0.072\n")
+    with pytest.raises(InputError, match=r"raw\.csv: data row 2, column 'mul': '1 cP' is not a number"):
+        to_conditions(read_table(p))
+    with pytest.raises(InputError, match="lacks input column.s. sigma"):
+        to_conditions(read_table(p).drop(columns="sigma"))

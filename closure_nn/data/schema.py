@@ -168,11 +168,20 @@ def to_conditions(df: pd.DataFrame, check: bool = True, where: str = "") -> Cond
     """
     from ..physics.checks import InputError
 
+    where = where or str(df.attrs.get("path", ""))
+    loc = f"{where}: " if where else ""
+    missing = [n for n in INPUTS if n not in df and not (n == "rhog" and can_compute_rhog(df.columns))]
+    if missing:
+        raise InputError(f"{loc}table lacks input column(s) {', '.join(missing)} "
+                         "(`closure-nn check-data FILE` lists every problem of a table)")
+    for n in INPUTS + GAS_STATE:
+        if n in df and df[n].dtype == object:  # raw text kept by read_table for a cell that is no number
+            bad = [(i, v) for i, v in enumerate(df[n]) if not isinstance(v, float)]
+            if bad:
+                raise InputError(f"{loc}data row {bad[0][0] + 1}, column {n!r}: {bad[0][1]!r} is not a number "
+                                 "(`closure-nn check-data FILE` lists every problem of a table)")
     if "rhog" not in df or df["rhog"].isna().any():
         df, _ = fill_gas_density(df)
-    missing = [n for n in INPUTS if n not in df]
-    if missing:
-        raise InputError(f"{where + ': ' if where else ''}table lacks input column(s) {', '.join(missing)}")
     kw = {n: torch.tensor(df[n].to_numpy(np.float64, copy=True)) for n in INPUTS}
     cond = make_conditions(**kw)
     if check:
