@@ -21,17 +21,20 @@ class InputError(ValueError):
 RANGES: dict[str, tuple[float, float, str, str]] = {
     "vsl": (0.0, 50.0, "m/s", "counter-current flow (negative velocity) is out of scope"),
     "vsg": (0.0, 300.0, "m/s", "counter-current flow (negative velocity) is out of scope"),
-    "D": (1e-3, 3.0, "m", "outside 1 mm - 3 m looks like a unit slip (mm or in typed as m?)"),
+    "D": (1e-3, 3.0, "m", "a diameter this large looks like a unit slip: mm or in typed as m?"),
     "theta": (-math.pi / 2, math.pi / 2, "rad", "inclination must lie in [-90, 90] degrees"),
     "roughness": (0.0, 0.01, "m", "roughness above 10 mm looks like a unit slip"),
     "rhol": (100.0, 3000.0, "kg/m3", ""),
     "rhog": (0.01, 500.0, "kg/m3", ""),
-    "mul": (1e-5, 10.0, "Pa s", "liquid viscosity above 10 Pa s looks like cP typed as Pa s"),
+    "mul": (1e-5, 10.0, "Pa s", "above 10 Pa s looks like cP typed as Pa s"),
     "mug": (1e-7, 1e-3, "Pa s", ""),
     "sigma": (1e-4, 0.5, "N/m", ""),
     "g": (0.1, 30.0, "m/s2", ""),
 }
 POSITIVE = {"D", "rhol", "rhog", "mul", "mug", "sigma", "g"}
+#: fields whose note explains the LOW side of the range (for the others it explains the high side)
+_LOW_NOTE = {"vsl", "vsg", "theta"}
+_HIGH_NOTE = {"D", "theta", "roughness", "mul"}
 
 
 def check_range(name: str, values: torch.Tensor, where: str = "") -> None:
@@ -41,13 +44,13 @@ def check_range(name: str, values: torch.Tensor, where: str = "") -> None:
     bad = ~torch.isfinite(v) | (v < lo) | (v > hi) | ((v <= 0) if name in POSITIVE else torch.zeros_like(v, dtype=torch.bool))
     if bool(bad.any()):
         i = int(bad.nonzero()[0])
+        x = float(v[i])
         loc = f"{where}, " if where else ""
         row = f"row {i}, " if v.numel() > 1 else ""
-        extra = f" ({note})" if note else ""
-        raise InputError(
-            f"{loc}{row}{name} = {float(v[i]):.6g} {unit} is outside the expected range "
-            f"[{lo:g}, {hi:g}] {unit}{extra}"
-        )
+        show = (x < lo and name in _LOW_NOTE) or (x > hi and name in _HIGH_NOTE)
+        extra = f" ({note})" if note and show else ""
+        what = "is not a number" if math.isnan(x) else "is out of range"
+        raise InputError(f"{loc}{row}{name} = {x:.6g} {unit} {what}; expected {lo:g} to {hi:g} {unit}{extra}")
 
 
 def check_conditions(cond: Conditions, where: str = "") -> None:
