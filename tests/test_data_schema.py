@@ -60,7 +60,7 @@ def test_to_conditions_float64_and_isa_gas_density():
 def test_to_conditions_checks_ranges():
     df = validate_table(read_table(FIXTURES / "loop_si.csv")).clean
     df.loc[0, "D"] = 50.0
-    with pytest.raises(InputError, match="D = 50 m is outside"):
+    with pytest.raises(InputError, match="loop_si.csv.*D = 50 m"):
         to_conditions(df, where="loop_si.csv")
 
 
@@ -130,3 +130,14 @@ def test_to_conditions_on_unvalidated_table_names_bad_cell(tmp_path):
         to_conditions(read_table(p))
     with pytest.raises(InputError, match="lacks input column.s. sigma"):
         to_conditions(read_table(p).drop(columns="sigma"))
+
+
+def test_range_note_only_on_the_side_it_explains():
+    # the physics note for D explains a too-large diameter; a 0.5 mm bore gets no such note
+    from closure_nn.data.validate import validate_table as vt
+
+    base = dict(vsl=[0.1, 0.1], vsg=[2.0, 2.0], D=[0.0005, 30.0], theta=[0.0, 0.0], roughness=[0.0, 0.0],
+                rhol=[998.0, 998.0], rhog=[1.2, 1.2], mul=[1e-3, 1e-3], mug=[1.8e-5, 1.8e-5], sigma=[0.072, 0.072])
+    r = vt(pd.DataFrame(base)).rejected["reason"].tolist()
+    note = RANGES["D"][3]
+    assert note not in r[0] and note in r[1]

@@ -36,6 +36,7 @@ import numpy as np
 import pandas as pd
 import torch
 
+from ..physics import checks as _checks
 from ..physics.checks import POSITIVE, RANGES, check_conditions
 from ..physics.conditions import Conditions, gas_density, make_conditions
 from ..physics.vocabulary import PATTERNS
@@ -62,12 +63,20 @@ class ColumnSpec:
     range_note: str = ""
     positive: bool = False
     required: bool = False
+    note_side: str = "both"  # 'low' | 'high' | 'both': the side of the range the note explains
+
+
+def _note_side(name: str) -> str:
+    """Side of the range the physics note of ``name`` explains (closure_nn.physics.checks)."""
+    low = name in getattr(_checks, "_LOW_NOTE", {name})
+    high = name in getattr(_checks, "_HIGH_NOTE", {name})
+    return "both" if low == high else "low" if low else "high"
 
 
 def _inp(name: str, dimension: str, description: str) -> ColumnSpec:
     lo, hi, unit, note = RANGES[name]
     return ColumnSpec(name, unit, dimension, "float", "input", description, (lo, hi), note,
-                      name in POSITIVE, required=True)
+                      name in POSITIVE, required=True, note_side=_note_side(name))
 
 
 #: THE table of columns, in canonical order.
@@ -83,7 +92,8 @@ COLUMNS: tuple[ColumnSpec, ...] = (
     _inp("mug", "dynamic viscosity", "gas dynamic viscosity"),
     _inp("sigma", "surface tension", "gas-liquid surface tension"),
     ColumnSpec("p", "Pa", "pressure", "float", "gas_state", "absolute pressure (for rhog)",
-               (1e3, 1e8), "absolute pressure 0.01 - 1000 bar; gauge pressure must be marked [barg]", True),
+               (1e3, 1e8), "absolute pressure 0.01 - 1000 bar; gauge pressure must be marked [barg]", True,
+               note_side="both"),
     ColumnSpec("T", "K", "temperature", "float", "gas_state", "temperature (for rhog)",
                (150.0, 600.0), "absolute temperature in K", True),
     ColumnSpec("M_g", "kg/mol", "molar mass", "float", "gas_state", "gas molar mass (for rhog)",
@@ -94,7 +104,7 @@ COLUMNS: tuple[ColumnSpec, ...] = (
                (0.0, 1.0), "holdup is a fraction in [0, 1]"),
     ColumnSpec("pgrad", "Pa/m", "pressure gradient", "float", "target",
                "pressure gradient -dp/dx, positive when pressure falls along the flow",
-               (-1e6, 1e6), "a magnitude above 10 bar/m is not plausible"),
+               (-1e6, 1e6), "a magnitude above 10 bar/m is not plausible", note_side="both"),
     ColumnSpec("pattern", "", "none", "str", "target",
                "flow pattern, one of: " + ", ".join(PATTERNS)),
     ColumnSpec("holdup_sd", "-", "fraction", "float", "uncertainty",

@@ -224,7 +224,6 @@ def _check_numeric(df: pd.DataFrame, spec: ColumnSpec, pr: _Problems, typebad: n
         return v
     lo, hi = spec.range
     rng = f"[{lo:g}, {hi:g}]{_unit(spec.unit)}"
-    note = f" ({spec.range_note})" if spec.range_note else ""
     with np.errstate(invalid="ignore"):
         bad = np.isinf(v) | (v < lo) | (v > hi) | (spec.positive & (v <= 0))
     for i in np.flatnonzero(bad):
@@ -235,6 +234,8 @@ def _check_numeric(df: pd.DataFrame, spec: ColumnSpec, pr: _Problems, typebad: n
             need = "finite" if not math.isfinite(x) else "> 0" if spec.positive else ">= 0" if lo == 0 else f"in {rng}"
             check, text = "nonphysical", f"{pr.typed(spec.name, x)} is non-physical (must be {need}; expected {rng})"
         else:
+            side = "low" if x < lo else "high"
+            note = f" ({spec.range_note})" if spec.range_note and spec.note_side in (side, "both") else ""
             check, text = "range", f"{pr.typed(spec.name, x)} is outside the expected range {rng}{note}"
         hint = slip_hint(x, spec.dimension, lo, hi) if spec.name not in pr.units else ""
         pr.add(i, check, spec.name, text + (f"; {hint}" if hint else ""))
