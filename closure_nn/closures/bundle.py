@@ -1,0 +1,196 @@
+"""The closure bundle: one directory holding a trained neural closure and everything about it.
+
+Layout (our own format, ``format = "closure-nn-bundle"``)::
+
+    <bundle>/
+      bundle.json   metadata: format and version, model constructor arguments, feature names,
+                    scaler, training-domain summary, data provenance, metrics, resolved
+                    training config, package versions, SHA-256 of the weights, the caution
+      weights.pt    the state dict (float64 tensors; includes scaler and domain buffers)
+
+:func:`load_bundle` rebuilds the :class:`~closure_nn.closures.neural.NeuralClosure` with torch
+only (no Lightning, no Hydra) and checks it: missing file or key, unparsable JSON, unknown format
+version, a feature list that differs from this code's :data:`~closure_nn.physics.groups.FEATURE_NAMES`,
+a checksum mismatch and weights that do not fit the model each raise :class:`BundleError` with
+the file and what was expected. A directory with ``ensemble.json`` loads as a
+:class:`~closure_nn.closures.ensemble.ClosureEnsemble`.
+
+:func:`export_plain` writes the network as plain JSON (matrices, activation, scaler, output
+formula) for solvers not written in Python; they compute the features and the baseline
+themselves from the documented formulas.
+"""
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import platform
+import time
+from pathlib import Path
+from typing import Any
+
+import torch
+
+from ..caution import CAUTION
+from ..physics.checks import InputError
+from ..physics.groups import FEATURE_NAMES
+from .neural import OUTPUT_NAMES, NeuralClosure
+
+BUNDLE_FORMAT = "closure-nn-bundle"
+BUNDLE_VERSION = 1
+PLAIN_FORMAT = "closure-nn-plain-mlp"
+META_FILE, WEIGHTS_FILE = "bundle.json", "weights.pt"
+REQUIRED_KEYS = ("format", "format_version", "model", "feature_names", "checksums")
+
+
+class BundleError(InputError):
+    """A bundle that cannot be loaded: corrupted, incomplete or made for other code."""
+
+
+def _sha256(path: Path) -> str:
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for block in iter(lambda: fh.read(1 << 20), b""):
+            h.update(block)
+    return h.hexdigest()
+
+
+def versions() -> dict[str, str]:
+    """Versions of the packages a bundle was written with."""
+    import numpy
+
+    try:
+        from importlib.metadata import version
+
+        own = version("closure-nn")
+    except Exception:  # not installed as a distribution
+        own = "unknown"
+    return {"closure_nn": own, "torch": torch.__version__, "numpy": numpy.__version__,
+            "python": platform.python_version()}
+
+
+def _jsonable(o: Any):
+    if hasattr(o, "item"):
+        return o.item()
+    if hasattr(o, "tolist"):
+        return o.tolist()
+    if isinstance(o, Path):
+        return str(o)
+    raise TypeError(f"not JSON serialisable: {type(o).__name__}")
+
+
+def save_bundle(closure: NeuralClosure, path: str | os.PathLike, *, provenance: dict | None = None,
+                metrics: dict | None = None, config: dict | None = None, domain: dict | None = None) -> Path:
+    """Write ``closure`` as a bundle directory at ``path`` (created; existing files replaced)."""
+    p = Path(path)
+    p.mkdir(parents=True, exist_ok=True)
+    wpath = p / WEIGHTS_FILE
+    state = {k: v.detach().clone() for k, v in closure.state_dict().items()}
+    torch.save(state, wpath)
+    meta = {
+        "format": BUNDLE_FORMAT, "format_version": BUNDLE_VERSION,
+        "created": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
+        "model": closure.hparams, "label": closure.label,
+        "feature_names": list(FEATURE_NAMES), "outputs": list(OUTPUT_NAMES),
+        "scaler": {"mean": closure.feature_mean.tolist(), "std": closure.feature_std.tolist()},
+        "domain": domain or {"n_points": int(closure.domain_points.shape[0]),
+                             "nn_threshold": float(closure.domain_threshold)},
+        "provenance": provenance or {}, "metrics": metrics or {}, "config": config or {},
+        "versions": versions(), "checksums": {WEIGHTS_FILE: _sha256(wpath)}, "caution": CAUTION,
+    }
+    (p / META_FILE).write_text(json.dumps(meta, indent=2, default=_jsonable) + "\n")
+    return p
+
+
+def read_metadata(path: str | os.PathLike) -> dict:
+    """The checked ``bundle.json`` of a bundle directory (or the path of the file itself)."""
+    p = Path(path)
+    mpath = p if p.is_file() else p / META_FILE
+    if not mpath.exists():
+        raise BundleError(f"{p}: not a closure bundle ({META_FILE} is missing)")
+    try:
+        meta = json.loads(mpath.read_text())
+    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+        raise BundleError(f"{mpath}: corrupted bundle metadata, not valid JSON ({exc})") from None
+    if not isinstance(meta, dict):
+        raise BundleError(f"{mpath}: corrupted bundle metadata (expected a JSON object)")
+    missing = [k for k in REQUIRED_KEYS if k not in meta]
+    if missing:
+        raise BundleError(f"{mpath}: bundle metadata lacks the key(s) {', '.join(missing)}")
+    if meta["format"] != BUNDLE_FORMAT or meta["format_version"] != BUNDLE_VERSION:
+        raise BundleError(f"{mpath}: format {meta['format']!r} version {meta['format_version']!r}; this code reads "
+                          f"{BUNDLE_FORMAT!r} version {BUNDLE_VERSION}")
+    if list(meta["feature_names"]) != list(FEATURE_NAMES):
+        raise BundleError(f"{mpath}: the bundle was trained on features {meta['feature_names']}, this code computes "
+                          f"{list(FEATURE_NAMES)}; retrain or use the matching closure-nn version")
+    return meta
+
+
+def load_bundle(path: str | os.PathLike):
+    """Load a bundle directory as a :class:`NeuralClosure` (an ensemble directory as a
+    :class:`~closure_nn.closures.ensemble.ClosureEnsemble`). The metadata is attached as
+    ``closure.bundle_metadata``. Raises :class:`BundleError` (see module docstring)."""
+    p = Path(path)
+    if p.is_dir() and (p / "ensemble.json").exists():
+        from .ensemble import load_ensemble
+
+        return load_ensemble(p)
+    if not p.exists():
+        raise BundleError(f"{p}: no such closure bundle")
+    root = p if p.is_dir() else p.parent
+    meta = read_metadata(p)
+    wpath = root / WEIGHTS_FILE
+    if not wpath.exists():
+        raise BundleError(f"{root}: bundle weights {WEIGHTS_FILE} are missing")
+    expected = meta["checksums"].get(WEIGHTS_FILE)
+    actual = _sha256(wpath)
+    if expected != actual:
+        raise BundleError(f"{wpath}: checksum mismatch (metadata says sha256 {expected}, file has {actual}); "
+                          "the weights are corrupted or belong to another bundle")
+    try:
+        state = torch.load(wpath, map_location="cpu", weights_only=True)
+    except Exception as exc:  # torch raises several types for a damaged pickle/zip
+        raise BundleError(f"{wpath}: cannot read the weights ({str(exc).splitlines()[0]})") from None
+    try:
+        closure = NeuralClosure(**meta["model"])
+    except (TypeError, ValueError) as exc:
+        raise BundleError(f"{root / META_FILE}: bad model description {meta['model']} ({exc})") from None
+    if "domain_points" in state:
+        closure.set_domain(state["domain_lo"], state["domain_hi"], state["domain_points"], float(state["domain_threshold"]))
+    try:
+        closure.load_state_dict(state, strict=True)
+    except RuntimeError as exc:
+        first = str(exc).splitlines()[0]
+        raise BundleError(f"{wpath}: the weights do not fit the model described in {META_FILE} ({first})") from None
+    closure.bundle_metadata = meta
+    closure.eval()
+    return closure
+
+
+def export_plain(closure: NeuralClosure, path: str | os.PathLike) -> Path:
+    """Write the network as plain JSON for non-Python solvers; returns the file path.
+
+    Evaluation (all float64), for features x (11 values, definitions in
+    :mod:`closure_nn.physics.groups`) and the baseline factors f_base (correction mode):
+    ``z = (x - mean) / std``; for each layer ``z = act(W z + b)`` (no activation after the last);
+    correction mode ``f = f_base * exp(bound * tanh(z))``, direct mode
+    ``f = exp(log_f_ref + span * tanh(z / span))``; outputs ordered f_wl, f_wg, f_i.
+    """
+    import torch.nn as nn
+
+    linears = [m for m in closure.body if isinstance(m, nn.Linear)] + [closure.head]
+    spec = {
+        "format": PLAIN_FORMAT, "format_version": 1, "feature_names": list(FEATURE_NAMES),
+        "outputs": list(OUTPUT_NAMES), "activation": closure.activation, "mode": closure.mode,
+        "bound": closure.bound, "direct_span": closure.direct_span, "log_f_ref": closure.log_f_ref.tolist(),
+        "baseline": closure.hparams["baseline"],
+        "scaler": {"mean": closure.feature_mean.tolist(), "std": closure.feature_std.tolist()},
+        "layers": [{"W": lin.weight.detach().tolist(), "b": lin.bias.detach().tolist()} for lin in linears],
+        "activation_definitions": {"silu": "x / (1 + exp(-x))", "tanh": "tanh(x)",
+                                   "softplus": "log(1 + exp(x))", "gelu": "0.5 x (1 + erf(x / sqrt(2)))"},
+        "evaluation": export_plain.__doc__.split("Evaluation", 1)[1].strip(),
+    }
+    p = Path(path)
+    p.parent.mkdir(parents=True, exist_ok=True)
+    p.write_text(json.dumps(spec, indent=1) + "\n")
+    return p

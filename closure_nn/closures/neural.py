@@ -1,0 +1,197 @@
+r"""Neural friction closures: a small MLP on the dimensionless groups of a local state.
+
+The network reads the :data:`~closure_nn.physics.groups.FEATURE_NAMES` groups of a
+:class:`~closure_nn.physics.local_state.LocalState` (any trial h/D or delta/D, any batch shape),
+standardised with scaler buffers saved in the model, and returns three positive Fanning factors.
+
+Two output modes (``mode``):
+
+* ``'correction'`` - a bounded multiplicative correction of a mechanistic baseline,
+
+  .. math:: f_k = f_{k,\mathrm{base}}\,\exp\!\big(b\,\tanh(o_k)\big),\qquad k \in \{WL, WG, i\}
+
+  with the bound ``b`` (so :math:`e^{-b} \le f/f_\mathrm{base} \le e^{b}`). The last layer starts at
+  zero, so an untrained model IS the baseline and a model far outside its data stays within
+  a factor :math:`e^{b}` of it.
+* ``'direct'`` - the friction factors themselves, :math:`\ln f_k = \ln f_{k,\mathrm{ref}} + s\tanh(o_k/s)`
+  with reference levels ``log_f_ref`` (set from the baseline at the training states) and a soft
+  span ``s`` (``direct_span``) that keeps the root finder finite.
+
+Positivity holds by construction in both modes (exponential of a finite number).
+
+The training domain (per-feature bounds plus a nearest-neighbour distance threshold in the
+standardised feature space, fitted by :mod:`closure_nn.data.features`) is stored in buffers, so it
+travels with the weights; :meth:`NeuralClosure.in_domain` flags states outside it.
+"""
+from __future__ import annotations
+
+from typing import Sequence
+
+import torch
+from torch import nn
+
+from ..physics.groups import FEATURE_NAMES, closure_features
+from ..physics.local_state import LocalState
+from ..physics.momentum import FrictionFactors
+from .base import Closure
+from .baseline import BaselineClosure
+
+MODES = ("correction", "direct")
+ACTIVATIONS: dict[str, type[nn.Module]] = {"silu": nn.SiLU, "tanh": nn.Tanh, "softplus": nn.Softplus, "gelu": nn.GELU}
+N_OUT = 3  # f_WL, f_WG, f_i
+OUTPUT_NAMES = ("f_wl", "f_wg", "f_i")
+
+
+def domain_mask(z: torch.Tensor, lo: torch.Tensor, hi: torch.Tensor, points: torch.Tensor,
+                threshold: torch.Tensor, margin: float = 0.0, chunk: int = 4096) -> torch.Tensor:
+    """Bool mask ``(*batch)``: standardised features ``z (*batch, F)`` inside the training domain.
+
+    A point is inside when every feature lies in ``[lo - margin, hi + margin]`` (standardised
+    units) AND its Euclidean distance to the nearest training point ``points (M, F)`` is at most
+    ``threshold``. With no stored points (``M = 0``) every point counts as outside.
+    This is the one implementation of the check; :class:`closure_nn.data.features.TrainingDomain`
+    calls it too.
+    """
+    flat = z.detach().reshape(-1, z.shape[-1])
+    if points.shape[0] == 0:
+        return torch.zeros(z.shape[:-1], dtype=torch.bool)
+    box = ((flat >= lo - margin) & (flat <= hi + margin)).all(dim=-1)
+    near = torch.empty_like(box)
+    for i in range(0, flat.shape[0], chunk):
+        d = torch.cdist(flat[i:i + chunk], points).min(dim=-1).values
+        near[i:i + chunk] = d <= threshold
+    return (box & near).reshape(z.shape[:-1])
+
+
+class NeuralClosure(Closure):
+    """MLP closure ``state -> FrictionFactors`` (see module docstring for the two modes).
+
+    Parameters
+    ----------
+    hidden : sequence of int
+        Widths of the hidden layers, e.g. ``(32, 32)``.
+    activation : {'silu', 'tanh', 'softplus', 'gelu'}
+        Smooth activation, so the closure and its root-finder residual stay differentiable.
+    mode : {'correction', 'direct'}
+    bound : float
+        ``b`` of the correction mode; the learned factor lies in ``[e^-b, e^b]``.
+    direct_span : float
+        ``s`` of the direct mode [-, natural log units].
+    baseline : BaselineClosure or dict, optional
+        The mechanistic baseline (constructor keywords if a dict); used by the correction mode
+        and, in both modes, by the prior of the training loss. Default ``BaselineClosure()``.
+
+    >>> from closure_nn.physics.conditions import make_conditions
+    >>> from closure_nn.physics.local_state import local_state
+    >>> s = local_state(make_conditions(vsl=0.05, vsg=[2.0, 4.0], D=0.05), torch.tensor([0.2, 0.3]), 'stratified')
+    >>> net, base = NeuralClosure(hidden=(8,)), BaselineClosure()
+    >>> bool(torch.equal(net(s).f_i, base(s).f_i))  # zero correction at initialisation
+    True
+    """
+
+    def __init__(self, hidden: Sequence[int] = (32, 32), activation: str = "silu", mode: str = "correction",
+                 bound: float = 1.0, direct_span: float = 6.0,
+                 baseline: BaselineClosure | dict | None = None) -> None:
+        super().__init__()
+        if mode not in MODES:
+            raise ValueError(f"unknown neural closure mode {mode!r}; known: {', '.join(MODES)}")
+        if activation not in ACTIVATIONS:
+            raise ValueError(f"unknown activation {activation!r}; known: {', '.join(ACTIVATIONS)}")
+        if bound <= 0 or direct_span <= 0:
+            raise ValueError(f"bound and direct_span must be positive, got {bound} and {direct_span}")
+        if baseline is None:
+            baseline = BaselineClosure()
+        elif isinstance(baseline, dict):
+            baseline = BaselineClosure(**baseline)
+        self.baseline = baseline
+        self.mode, self.activation, self.bound, self.direct_span = mode, activation, float(bound), float(direct_span)
+        self.hidden = tuple(int(h) for h in hidden)
+        n_in = len(FEATURE_NAMES)
+        layers: list[nn.Module] = []
+        width = n_in
+        for h in self.hidden:
+            layers += [nn.Linear(width, h), ACTIVATIONS[activation]()]
+            width = h
+        self.head = nn.Linear(width, N_OUT)
+        self.body = nn.Sequential(*layers)
+        nn.init.zeros_(self.head.weight)
+        nn.init.zeros_(self.head.bias)
+        self.double()
+        f64 = dict(dtype=torch.float64)
+        self.register_buffer("feature_mean", torch.zeros(n_in, **f64))
+        self.register_buffer("feature_std", torch.ones(n_in, **f64))
+        self.register_buffer("log_f_ref", torch.log(torch.tensor([0.005, 0.005, 0.01], **f64)))
+        self.register_buffer("domain_lo", torch.full((n_in,), -torch.inf, **f64))
+        self.register_buffer("domain_hi", torch.full((n_in,), torch.inf, **f64))
+        self.register_buffer("domain_points", torch.zeros(0, n_in, **f64))
+        self.register_buffer("domain_threshold", torch.tensor(0.0, **f64))
+        self.label = f"neural({mode}, hidden={list(self.hidden)}, {activation})"
+
+    # ----------------------------------------------------------------- configuration
+    @property
+    def hparams(self) -> dict:
+        """JSON-able constructor arguments (what a bundle needs to rebuild the model)."""
+        b = self.baseline
+        return {"hidden": list(self.hidden), "activation": self.activation, "mode": self.mode,
+                "bound": self.bound, "direct_span": self.direct_span,
+                "baseline": {"wall": b.wall_name, "interface": b.interface_name,
+                             "annular_interface": b.annular_name, "interface_kwargs": dict(b.interface_kwargs)}}
+
+    def set_scaler(self, mean: torch.Tensor, std: torch.Tensor) -> None:
+        """Store the feature standardisation ``z = (x - mean) / std`` (each ``(F,)``)."""
+        self.feature_mean.copy_(torch.as_tensor(mean, dtype=torch.float64))
+        self.feature_std.copy_(torch.as_tensor(std, dtype=torch.float64))
+
+    def set_domain(self, lo: torch.Tensor, hi: torch.Tensor, points: torch.Tensor, threshold: float) -> None:
+        """Store the training domain in standardised units: bounds ``(F,)``, points ``(M, F)``."""
+        self.domain_lo = torch.as_tensor(lo, dtype=torch.float64).clone()
+        self.domain_hi = torch.as_tensor(hi, dtype=torch.float64).clone()
+        self.domain_points = torch.as_tensor(points, dtype=torch.float64).clone()
+        self.domain_threshold = torch.as_tensor(float(threshold), dtype=torch.float64)
+
+    def freeze_layers(self, n: int) -> None:
+        """Stop training the first ``n`` hidden Linear layers (fine-tuning); the head always trains."""
+        linears = [m for m in self.body if isinstance(m, nn.Linear)]
+        if n > len(linears):
+            raise ValueError(f"cannot freeze {n} layers: the model has {len(linears)} hidden layers")
+        for i, lin in enumerate(linears):
+            for p in lin.parameters():
+                p.requires_grad_(i >= n)
+
+    # ----------------------------------------------------------------- evaluation
+    def standardise(self, x: torch.Tensor) -> torch.Tensor:
+        """Features ``(*batch, F)`` -> standardised ``(*batch, F)``."""
+        return (x - self.feature_mean) / self.feature_std
+
+    def learned_log_factor(self, z: torch.Tensor) -> torch.Tensor:
+        """The network's part of ln f, ``(*batch, 3)``, from standardised features ``z (*batch, F)``.
+
+        Correction mode: :math:`b\\tanh(o)`, the log of f / f_base. Direct mode:
+        :math:`s\\tanh(o/s)`, the log of f / f_ref.
+        """
+        out = self.head(self.body(z))
+        if self.mode == "correction":
+            return self.bound * torch.tanh(out)
+        return self.direct_span * torch.tanh(out / self.direct_span)
+
+    def log_friction(self, state: LocalState) -> torch.Tensor:
+        """ln of (f_WL, f_WG, f_i), shape ``(*batch, 3)``."""
+        return torch.log(torch.stack(tuple(self(state)), dim=-1))
+
+    def forward(self, state: LocalState) -> FrictionFactors:
+        g = self.learned_log_factor(self.standardise(closure_features(state)))
+        if self.mode == "correction":
+            # f_base * exp(g) rather than exp(ln f_base + g): exactly the baseline where g = 0
+            f = torch.stack(tuple(self.baseline(state)), dim=-1) * torch.exp(g)
+        else:
+            f = torch.exp(self.log_f_ref + g)
+        return FrictionFactors(f_wl=f[..., 0], f_wg=f[..., 1], f_i=f[..., 2])
+
+    def in_domain(self, features: torch.Tensor, margin: float = 0.0) -> torch.Tensor:
+        """Bool mask ``(*batch)``: raw features ``(*batch, F)`` inside the stored training domain."""
+        return domain_mask(self.standardise(torch.as_tensor(features, dtype=torch.float64)), self.domain_lo,
+                           self.domain_hi, self.domain_points, self.domain_threshold, margin)
+
+    def describe(self) -> dict:
+        return {**super().describe(), **self.hparams, "feature_names": list(FEATURE_NAMES),
+                "n_parameters": sum(p.numel() for p in self.parameters())}

@@ -1,0 +1,244 @@
+r"""The physics-regularised training loss of a neural closure (plain torch, no Lightning).
+
+A batch is a dict of ``(B,)`` tensors built by :func:`closure_nn.training.data.table_tensors`:
+the condition fields (:data:`closure_nn.physics.conditions.FIELD_NAMES`), the targets
+``holdup``, ``pgrad`` (-dp/dx [Pa/m]), their 1-sigma ``holdup_sd``, ``pgrad_sd`` (NaN = not
+measured / not given), the separated configuration ``kind`` (codes of
+:data:`closure_nn.data.features.KIND_CODE`, -1 = not separated flow), the observed ``pattern``
+(codes of :data:`closure_nn.physics.vocabulary.CODE`, -1 = not observed) and a row ``weight``.
+
+Terms (each a weighted mean over the rows it applies to; weights in ``conf/loss/*.yaml``):
+
+``phase_residual``
+    Rows with holdup AND pgrad measured, at the MEASURED state (h/D from the holdup). Both phase
+    balances of :mod:`closure_nn.physics.momentum`, each divided by its phase area and by the
+    pgrad uncertainty :math:`\sigma_p`:
+
+    .. math:: r_L = \frac{R_L}{A_L\,\sigma_p},\qquad r_G = \frac{R_G}{A_G\,\sigma_p},\qquad
+              \ell = \tfrac12 (r_L^2 + r_G^2)
+
+    :math:`R_L/A_L` is the measured pgrad minus the pgrad that the liquid balance implies with
+    the closure's stresses, so :math:`r_L` counts pgrad standard deviations (a stress scale
+    :math:`A_L\sigma_p` per unit length).
+``combined_residual``
+    Rows with only holdup measured: the combined balance F [Pa/m] at the measured state,
+    divided by the sum of the magnitudes of its four terms evaluated with the BASELINE closure
+    (a fixed, parameter-free scale per row), squared.
+``data_holdup``, ``data_pgrad``
+    Every row with a measured target and a separated pattern: the equilibrium of the closure
+    (:func:`~closure_nn.physics.holdup_roots.solve_separated`, kind from the pattern; gradients
+    by the implicit function theorem), misfit :math:`((\hat H - H)/\sigma_H)^2` and
+    :math:`((\hat p - p)/\sigma_p)^2`. Rows without an equilibrium root are left out (counted).
+``pattern``
+    Rows with only a pattern observed, near-horizontal (theta < ``patterns.THETA_STEEP``): the
+    Kelvin-Helmholtz margin :math:`m = u_G/u_{G,KH} - 1` of the closure's stratified equilibrium
+    (:func:`closure_nn.physics.patterns.kh_gas_velocity`, Taitel & Dukler 1976). Observed
+    stratified but predicted unstable: :math:`\max(m + \delta, 0)^2`; observed intermittent,
+    annular or dispersed bubble but predicted stable: :math:`\max(\delta - m, 0)^2`, with the
+    margin :math:`\delta` = ``pattern_margin``.
+``prior``
+    :math:`\sum_k (\ln f_k - \ln f_{k,\mathrm{base}})^2` at the measured (or, without holdup,
+    solved) states: pulls the closure toward the mechanistic baseline where data are silent.
+``smooth``
+    :math:`\sum_k \lVert \partial g_k / \partial z \rVert^2`, g the network's part of ln f and z
+    the standardised features, at the same states.
+
+Uncertainties: ``holdup_sd`` where given, else ``default_holdup_sd``; ``pgrad_sd`` where given,
+else ``pgrad_rel_sd * |pgrad| + pgrad_sd_floor``. Row weights multiply every term.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import torch
+from torch import nn
+
+from ..closures.neural import NeuralClosure
+from ..data.features import KIND_CODE, KINDS, frac_from_holdup
+from ..physics.conditions import FIELD_NAMES, Conditions
+from ..physics.geometry import STRATIFIED
+from ..physics.groups import closure_features
+from ..physics.holdup_roots import solve_separated
+from ..physics.local_state import LocalState, local_state
+from ..physics.momentum import combined_residual, gas_residual, liquid_residual, shear_stresses
+from ..physics.patterns import THETA_STEEP, kh_gas_velocity
+from ..physics.vocabulary import CODE, DISPERSED_BUBBLE, INTERMITTENT, STRATIFIED_PATTERNS
+from ..physics.vocabulary import ANNULAR as ANNULAR_PATTERN
+
+TERMS = ("phase_residual", "combined_residual", "data_holdup", "data_pgrad", "pattern", "prior", "smooth")
+_STRAT_CODES = tuple(CODE[p] for p in STRATIFIED_PATTERNS)
+_UNSTABLE_CODES = (CODE[INTERMITTENT], CODE[ANNULAR_PATTERN], CODE[DISPERSED_BUBBLE])
+
+
+@dataclass
+class LossSettings:
+    """Weights and uncertainty defaults of :class:`ClosureLoss` (``conf/loss/*.yaml``)."""
+
+    weights: dict = field(default_factory=lambda: {"phase_residual": 1.0, "combined_residual": 1.0,
+                                                   "data_holdup": 1.0, "data_pgrad": 1.0, "pattern": 1.0,
+                                                   "prior": 1e-2, "smooth": 1e-3})
+    default_holdup_sd: float = 0.02  # [-]
+    pgrad_rel_sd: float = 0.05  # [-]
+    pgrad_sd_floor: float = 1.0  # [Pa/m]
+    pattern_margin: float = 0.05  # [-]
+    select: str = "thinnest"
+    n_grid: int = 40
+
+    def __post_init__(self) -> None:
+        unknown = set(self.weights) - set(TERMS)
+        if unknown:
+            raise ValueError(f"unknown loss term(s) {', '.join(sorted(unknown))}; known: {', '.join(TERMS)}")
+        self.weights = {k: float(self.weights.get(k, 0.0)) for k in TERMS}
+
+
+def batch_conditions(batch: dict[str, torch.Tensor], rows: torch.Tensor | None = None) -> Conditions:
+    """Conditions of the batch rows selected by the bool mask ``rows`` (all rows if None)."""
+    cols = {k: batch[k] if rows is None else batch[k][rows] for k in FIELD_NAMES}
+    return Conditions(**cols)
+
+
+def uncertainties(batch: dict[str, torch.Tensor], cfg: LossSettings) -> tuple[torch.Tensor, torch.Tensor]:
+    """Per-row sigma_H [-] and sigma_p [Pa/m] (given values, else the defaults), ``(B,)``."""
+    sh = batch["holdup_sd"]
+    sh = torch.where(torch.isfinite(sh) & (sh > 0), sh, torch.full_like(sh, cfg.default_holdup_sd))
+    p = batch["pgrad"]
+    default_p = cfg.pgrad_rel_sd * torch.nan_to_num(p).abs() + cfg.pgrad_sd_floor
+    sp = batch["pgrad_sd"]
+    sp = torch.where(torch.isfinite(sp) & (sp > 0), sp, default_p)
+    return sh, sp
+
+
+def smoothness(closure: NeuralClosure, s: LocalState) -> torch.Tensor:
+    """Per-state squared gradient norm of the learned log factor w.r.t. standardised features ``(M,)``."""
+    z = closure.standardise(closure_features(s)).detach().requires_grad_(True)
+    g = closure.learned_log_factor(z)
+    total = torch.zeros(z.shape[:-1], dtype=z.dtype)
+    for k in range(g.shape[-1]):
+        (dz,) = torch.autograd.grad(g[..., k].sum(), z, create_graph=True)
+        total = total + (dz**2).sum(dim=-1)
+    return total
+
+
+class _Acc:
+    """Weighted sums and counts per term."""
+
+    def __init__(self) -> None:
+        self.sum = {k: torch.zeros((), dtype=torch.float64) for k in TERMS}
+        self.wsum = {k: 0.0 for k in TERMS}
+        self.count = {k: 0 for k in TERMS}
+
+    def add(self, term: str, per_row: torch.Tensor, w: torch.Tensor) -> None:
+        if per_row.numel():
+            self.sum[term] = self.sum[term] + (w * per_row).sum()
+            self.wsum[term] += float(w.sum())
+            self.count[term] += int(per_row.numel())
+
+    def mean(self, term: str) -> torch.Tensor:
+        return self.sum[term] / self.wsum[term] if self.wsum[term] > 0 else self.sum[term]
+
+
+class ClosureLoss(nn.Module):
+    """``loss(closure, batch) -> (total, terms, counts)``; see the module docstring.
+
+    ``terms`` maps every name of :data:`TERMS` to its (unweighted) mean, ``counts`` to the
+    number of rows it used; ``counts['no_root']`` counts rows whose equilibrium was not found.
+    """
+
+    def __init__(self, settings: LossSettings | None = None) -> None:
+        super().__init__()
+        self.settings = settings or LossSettings()
+
+    def forward(self, closure: NeuralClosure, batch: dict[str, torch.Tensor]):
+        cfg, acc = self.settings, _Acc()
+        w_row = batch["weight"]
+        sh, sp = uncertainties(batch, cfg)
+        H, P = batch["holdup"], batch["pgrad"]
+        has_h, has_p = torch.isfinite(H), torch.isfinite(P)
+        no_root = 0
+        reg_states: list[tuple[LocalState, torch.Tensor]] = []
+        for kind in KINDS:
+            sel = batch["kind"] == KIND_CODE[kind]
+            # --- (1), (2): residuals at the measured state
+            meas = sel & has_h
+            if meas.any():
+                c = batch_conditions(batch, meas)
+                s = local_state(c, frac_from_holdup(H[meas], kind), kind)
+                reg_states.append((s, w_row[meas]))
+                f = closure(s)
+                tau = shear_stresses(s, f)
+                both = has_p[meas]
+                if both.any():
+                    p, sig = P[meas][both], sp[meas][both]
+                    sb = local_state(c[both], s.geom.frac[both], kind)
+                    tb = type(tau)(*(t[both] for t in tau))
+                    r_l = liquid_residual(sb, tb, p) / (sb.geom.A_L * sig)
+                    r_g = gas_residual(sb, tb, p) / (sb.geom.A_G * sig)
+                    acc.add("phase_residual", 0.5 * (r_l**2 + r_g**2), w_row[meas][both])
+                only = ~both
+                if only.any():
+                    so = local_state(c[only], s.geom.frac[only], kind)
+                    to = type(tau)(*(t[only] for t in tau))
+                    acc.add("combined_residual", self._combined(closure, so, to), w_row[meas][only])
+            # --- (3): data misfit of the closure's equilibrium
+            data = sel & (has_h | has_p)
+            if data.any():
+                sol = solve_separated(batch_conditions(batch, data), closure, kind, select=cfg.select,
+                                      n_grid=cfg.n_grid)
+                ok = sol.found
+                no_root += int((~ok).sum())
+                hh, hp = has_h[data] & ok, has_p[data] & ok
+                wd = w_row[data]
+                acc.add("data_holdup", ((sol.holdup[hh] - H[data][hh]) / sh[data][hh]) ** 2, wd[hh])
+                acc.add("data_pgrad", ((sol.pgrad.total[hp] - P[data][hp]) / sp[data][hp]) ** 2, wd[hp])
+                solved = ok & ~has_h[data]
+                if solved.any():
+                    s_det = local_state(batch_conditions(batch, data)[solved], sol.frac[solved].detach(), kind)
+                    reg_states.append((s_det, wd[solved]))
+        # --- (4): observed pattern only
+        if cfg.weights["pattern"] > 0:
+            no_root += self._pattern(closure, batch, has_h | has_p, acc)
+        # --- (5): prior toward the baseline and smoothness, at the collected states
+        for s, w in reg_states:
+            if cfg.weights["prior"] > 0:
+                dlog = closure.log_friction(s) - torch.log(torch.stack(tuple(closure.baseline(s)), dim=-1))
+                acc.add("prior", (dlog**2).sum(dim=-1), w)
+            if cfg.weights["smooth"] > 0 and torch.is_grad_enabled():
+                acc.add("smooth", smoothness(closure, s), w)
+        terms = {k: acc.mean(k) for k in TERMS}
+        total = sum(cfg.weights[k] * terms[k] for k in TERMS)
+        # a zero-valued link to every trainable parameter, so that each (DDP) rank back-propagates
+        # through all parameters even when its batch has no row for some term
+        total = total + sum(0.0 * p.sum() for p in closure.parameters() if p.requires_grad)
+        counts = {**acc.count, "no_root": no_root}
+        return total, terms, counts
+
+    def _combined(self, closure: NeuralClosure, s: LocalState, tau) -> torch.Tensor:
+        """Squared combined residual over the baseline's term scale, ``(M,)``."""
+        c, g = s.cond, s.geom
+        with torch.no_grad():
+            tb = shear_stresses(s, closure.baseline(s))
+            scale = (tb.tau_wg * g.S_G / g.A_G).abs() + (tb.tau_wl * g.S_L / g.A_L).abs() \
+                + (tb.tau_i * g.S_i * (1 / g.A_L + 1 / g.A_G)).abs() \
+                + ((c.rhol - s.rho_core) * c.g * torch.sin(c.theta)).abs()
+        return (combined_residual(s, tau) / scale.clamp_min(1e-12)) ** 2
+
+    def _pattern(self, closure: NeuralClosure, batch: dict, has_target: torch.Tensor, acc: _Acc) -> int:
+        """Kelvin-Helmholtz consistency of pattern-only rows; returns the count of rows without a root."""
+        pat = batch["pattern"]
+        strat = torch.zeros_like(pat, dtype=torch.bool)
+        for code in _STRAT_CODES:
+            strat |= pat == code
+        unstable = torch.zeros_like(strat)
+        for code in _UNSTABLE_CODES:
+            unstable |= pat == code
+        rows = ~has_target & (strat | unstable) & (batch["theta"] < THETA_STEEP)
+        if not rows.any():
+            return 0
+        c = batch_conditions(batch, rows)
+        sol = solve_separated(c, closure, STRATIFIED, select=self.settings.select, n_grid=self.settings.n_grid)
+        ok = sol.found
+        m = sol.state.u_G / kh_gas_velocity(c, sol.state).clamp_min(1e-12) - 1
+        d = self.settings.pattern_margin
+        pen = torch.where(strat[rows], torch.relu(m + d), torch.relu(d - m)) ** 2
+        acc.add("pattern", pen[ok], batch["weight"][rows][ok])
+        return int((~ok).sum())

@@ -1,0 +1,265 @@
+"""``train(cfg) -> metrics``: pre-train, fine-tune or update a neural closure (conf/train.yaml).
+
+Stages (``cfg.stage``):
+
+``pretrain``  a new :class:`~closure_nn.closures.neural.NeuralClosure` (``cfg.model``) on the
+              baseline ``cfg.closure``; scaler and training domain fitted on the training table.
+``finetune``  start from ``cfg.init_bundle``; learning rate times ``finetune.lr_factor``; the first
+              ``finetune.freeze_layers`` hidden layers frozen; scaler kept, domain widened.
+``update``    like ``finetune`` on new rows, plus replay of ``data.replay`` tables (share
+              ``data.replay_fraction``); the accuracy on those earlier tables is measured before
+              and after, and the change is reported as ``forgetting``.
+
+Ensembles (``ensemble.members`` > 1): member m uses seed ``seed + m`` and, with
+``ensemble.bootstrap``, a bootstrap replicate of the training rows; fine-tuning an ensemble
+bundle starts member m from its member m.
+
+Every run writes into its run folder (``run_root``/train-<time>, or the folder of the checkpoint
+given as ``resume``): ``config.yaml`` (resolved), ``metrics.json``, ``metrics.csv``, Lightning's
+CSV logs, ``checkpoints/`` and the bundle ``bundle/``.
+"""
+from __future__ import annotations
+
+import copy
+import csv
+import math
+import os
+from pathlib import Path
+
+import lightning as L
+import pandas as pd
+import torch
+from lightning.pytorch.callbacks import EarlyStopping, ModelCheckpoint
+from lightning.pytorch.loggers import CSVLogger
+from lightning.pytorch.strategies import DDPStrategy
+from omegaconf import DictConfig, OmegaConf
+
+from ..caution import CAUTION
+from ..closures.bundle import load_bundle, save_bundle
+from ..closures.ensemble import ClosureEnsemble, save_ensemble
+from ..closures.neural import NeuralClosure
+from ..data.features import FeatureScaler, TrainingDomain, state_features, table_states
+from ..data.table_io import read_table
+from ..physics.checks import InputError
+from ..run_folder import make_run_dir, write_json
+from .loss import LossSettings
+from .metrics import accuracy
+from .module import ClosureTask, EpochTimer
+from .tables import bootstrap_table, concat_tensors, replay_sample, split_table, table_tensors
+
+STAGES = ("pretrain", "finetune", "update")
+BASELINE_KEYS = ("wall", "interface", "annular_interface", "interface_kwargs")
+
+
+def _provenance(name: str, path, df: pd.DataFrame) -> dict:
+    out = {"role": name, "path": str(path), "n_rows": int(len(df))}
+    for col in ("source", "campaign"):
+        if col in df.columns:
+            counts = df[col].fillna("").astype(str).value_counts()
+            out[col] = {str(k): int(v) for k, v in counts.head(20).items()}
+    return out
+
+
+def _baseline_kwargs(cfg: DictConfig) -> dict:
+    c = OmegaConf.to_container(cfg.closure, resolve=True)
+    if c.get("kind", "baseline") != "baseline":
+        raise InputError(f"train: closure.kind must be 'baseline' (the model's baseline), got {c.get('kind')!r}")
+    return {k: c[k] for k in BASELINE_KEYS if k in c}
+
+
+def _new_closure(cfg: DictConfig, df: pd.DataFrame) -> NeuralClosure:
+    m = cfg.model
+    closure = NeuralClosure(hidden=list(m.hidden), activation=m.activation, mode=m.mode, bound=m.bound,
+                            direct_span=m.direct_span, baseline=_baseline_kwargs(cfg))
+    states = table_states(df, closure.baseline, cfg.data.unknown_pattern)
+    if not states:
+        raise InputError(f"train: {cfg.data.train}: no separated-flow row (stratified or annular pattern) to train on")
+    feats = state_features(df, closure.baseline, cfg.data.unknown_pattern)
+    scaler = FeatureScaler.fit(feats)
+    closure.set_scaler(scaler.mean, scaler.std)
+    d = cfg.domain
+    TrainingDomain.fit(feats, scaler, d.max_points, d.quantile, d.factor, cfg.seed).apply_to(closure)
+    with torch.no_grad():
+        logs = torch.cat([torch.log(torch.stack(tuple(closure.baseline(s)), dim=-1)) for s in states])
+        closure.log_f_ref.copy_(logs.mean(dim=0))
+    return closure
+
+
+def _start_closure(cfg: DictConfig, df: pd.DataFrame, member: int) -> NeuralClosure:
+    if cfg.stage == "pretrain":
+        return _new_closure(cfg, df)
+    if not cfg.init_bundle:
+        raise InputError(f"train: stage {cfg.stage} needs init_bundle=<bundle directory>")
+    init = load_bundle(cfg.init_bundle)
+    closure = copy.deepcopy(init.members[member % len(init)] if isinstance(init, ClosureEnsemble) else init)
+    closure.train()
+    closure.freeze_layers(int(cfg.finetune.freeze_layers))
+    scaler = FeatureScaler(mean=closure.feature_mean.clone(), std=closure.feature_std.clone())
+    feats = state_features(df, closure.baseline, cfg.data.unknown_pattern)
+    if feats.shape[0]:
+        d = cfg.domain
+        new = TrainingDomain.fit(feats, scaler, d.max_points, d.quantile, d.factor, cfg.seed)
+        TrainingDomain.from_closure(closure).merged(new, d.max_points, cfg.seed).apply_to(closure)
+    return closure
+
+
+def _strategy(t: DictConfig):
+    if t.strategy == "ddp":
+        return DDPStrategy(process_group_backend=t.backend, start_method=t.start_method)
+    return t.strategy
+
+
+def _fit_one(cfg: DictConfig, train_df: pd.DataFrame, val_t: dict, replay_t: dict | None, seed: int,
+             out_dir: Path, member: int, callbacks: list) -> tuple[NeuralClosure, dict]:
+    L.seed_everything(seed, workers=True, verbose=False)
+    closure = _start_closure(cfg, train_df, member)
+    train_t = table_tensors(train_df, cfg.data.unknown_pattern)
+    metrics: dict = {"seed": seed, "val_initial": accuracy(closure, val_t, cfg.loss.select)}
+    if replay_t is not None:
+        metrics["replay_before"] = accuracy(closure, replay_t, cfg.loss.select)
+    t = cfg.trainer
+    lr = float(t.lr) * (1.0 if cfg.stage == "pretrain" else float(cfg.finetune.lr_factor))
+    loss = LossSettings(**OmegaConf.to_container(cfg.loss, resolve=True))
+    task = ClosureTask(closure, loss, lr=lr, weight_decay=t.weight_decay, select=cfg.loss.select)
+    from .datamodule import TableDataModule
+
+    dm = TableDataModule(train_t, val_t, batch_size=t.batch_size, seed=seed)
+    ckpt = ModelCheckpoint(dirpath=out_dir / "checkpoints", filename="best-{epoch:03d}", monitor=t.monitor,
+                           mode="min", save_top_k=1, save_last=True)
+    timer = EpochTimer()
+    cbs = [ckpt, timer, *callbacks]
+    if t.patience:
+        cbs.append(EarlyStopping(monitor=t.monitor, mode="min", patience=int(t.patience), min_delta=float(t.min_delta)))
+    trainer = L.Trainer(
+        accelerator="cpu", devices=int(t.devices), strategy=_strategy(t), max_epochs=int(t.max_epochs),
+        precision="64-true", deterministic=bool(t.deterministic), logger=CSVLogger(out_dir, name="logs"),
+        callbacks=cbs, enable_progress_bar=bool(t.progress_bar), enable_model_summary=False,
+        log_every_n_steps=int(t.log_every_n_steps), inference_mode=False, num_sanity_val_steps=0,
+        gradient_clip_val=t.gradient_clip_val, default_root_dir=out_dir,
+    )
+    trainer.fit(task, datamodule=dm, ckpt_path=cfg.resume or None)
+    best = ckpt.best_model_path
+    if best:
+        state = torch.load(best, map_location="cpu", weights_only=False)["state_dict"]
+        task.load_state_dict(state)
+    closure = task.closure.eval()
+    score = ckpt.best_model_score
+    metrics.update({
+        "epochs": int(trainer.current_epoch), "best_checkpoint": str(best),
+        f"best_{t.monitor.replace('/', '_')}": float(score) if score is not None else math.nan,
+        "seconds_per_epoch": sum(timer.seconds) / len(timer.seconds) if timer.seconds else math.nan,
+        "train": accuracy(closure, train_t, cfg.loss.select), "val": accuracy(closure, val_t, cfg.loss.select),
+    })
+    if replay_t is not None:
+        metrics["replay_after"] = accuracy(closure, replay_t, cfg.loss.select)
+        metrics["forgetting"] = {k: metrics["replay_after"][k] - metrics["replay_before"][k]
+                                 for k in ("holdup_rmse", "pgrad_rel_rmse")}
+    return closure, metrics
+
+
+def _flatten(d: dict, prefix: str = "") -> dict:
+    out = {}
+    for k, v in d.items():
+        key = f"{prefix}{k}"
+        if isinstance(v, dict):
+            out.update(_flatten(v, key + "."))
+        elif not isinstance(v, list):
+            out[key] = v
+    return out
+
+
+def train(cfg: DictConfig, callbacks: list | None = None) -> dict:
+    """Run one training stage as configured (module docstring); returns the metrics dict.
+
+    ``callbacks`` are extra Lightning callbacks (e.g. for tests or monitoring).
+    """
+    if cfg.stage not in STAGES:
+        raise InputError(f"train: stage = {cfg.stage!r}; expected one of {', '.join(STAGES)}")
+    n_members = int(cfg.ensemble.members)
+    if cfg.resume and n_members != 1:
+        raise InputError("train: resume works for single-model runs (ensemble.members = 1)")
+    torch.set_num_threads(int(cfg.trainer.num_threads))
+    if cfg.resume:
+        ck = Path(cfg.resume)
+        if not ck.exists():
+            raise FileNotFoundError(2, "No such checkpoint", str(ck))
+        run_dir = ck.resolve().parent.parent
+    else:
+        run_dir = make_run_dir("train", root=cfg.run_root, name=cfg.run_name)
+    OmegaConf.save(cfg, run_dir / "config.yaml", resolve=True)
+    train_df = read_table(cfg.data.train)
+    if cfg.data.val:
+        val_df = read_table(cfg.data.val)
+    else:
+        train_df, val_df = split_table(train_df, float(cfg.data.val_fraction), int(cfg.seed))
+    if len(val_df) == 0:
+        raise InputError("train: no validation rows; give data.val or data.val_fraction > 0")
+    provenance = {"stage": cfg.stage, "init_bundle": cfg.init_bundle,
+                  "tables": [_provenance("train", cfg.data.train, train_df), _provenance("val", cfg.data.val or "split", val_df)]}
+    replay_df = None
+    if cfg.stage == "update" and cfg.data.replay:
+        parts = [read_table(p) for p in cfg.data.replay]
+        replay_df = pd.concat(parts, ignore_index=True)
+        provenance["tables"] += [_provenance("replay", p, d) for p, d in zip(cfg.data.replay, parts)]
+    elif cfg.stage == "update":
+        raise InputError("train: stage update needs data.replay=[<earlier table>, ...] to replay and to measure forgetting")
+    val_t = table_tensors(val_df, cfg.data.unknown_pattern)
+    replay_t = table_tensors(replay_df, cfg.data.unknown_pattern) if replay_df is not None else None
+    members, member_metrics = [], []
+    for m in range(n_members):
+        seed = int(cfg.seed) + m
+        df = train_df
+        if cfg.ensemble.bootstrap and n_members > 1:
+            df = bootstrap_table(train_df, seed)
+        if replay_df is not None:
+            df = pd.concat([df, replay_sample(replay_df, float(cfg.data.replay_fraction), seed)], ignore_index=True)
+        out_dir = run_dir if n_members == 1 else run_dir / f"member_{m}"
+        closure, mm = _fit_one(cfg, df, val_t, replay_t, seed, out_dir, m, list(callbacks or []))
+        members.append(closure)
+        member_metrics.append(mm)
+    config = OmegaConf.to_container(cfg, resolve=True)
+    if n_members == 1:
+        metrics = {"stage": cfg.stage, **member_metrics[0]}
+        bundle = save_bundle(members[0], run_dir / "bundle", provenance=provenance, metrics=_flatten(metrics),
+                             config=config, domain=_domain_summary(members[0], cfg))
+    else:
+        ens = ClosureEnsemble(members)
+        metrics = {"stage": cfg.stage, "members": member_metrics, "ensemble": _ensemble_metrics(ens, val_t, cfg)}
+        meta = [dict(provenance=provenance, metrics=_flatten(mm), config=config, domain=_domain_summary(c, cfg))
+                for c, mm in zip(members, member_metrics)]
+        bundle = save_ensemble(members, run_dir / "bundle", meta, metrics=metrics["ensemble"])
+    metrics["run_dir"] = str(run_dir)
+    metrics["bundle"] = str(bundle)
+    write_json(run_dir / "metrics.json", metrics)
+    with open(run_dir / "metrics.csv", "w", newline="") as fh:
+        w = csv.writer(fh)
+        w.writerow(["metric", "value"])
+        for k, v in _flatten(metrics).items():
+            w.writerow([k, v])
+    return metrics
+
+
+def _domain_summary(closure: NeuralClosure, cfg: DictConfig) -> dict:
+    d = TrainingDomain.from_closure(closure)
+    d.rule = OmegaConf.to_container(cfg.domain, resolve=True)
+    return d.to_dict()
+
+
+def _ensemble_metrics(ens: ClosureEnsemble, val_t: dict, cfg: DictConfig) -> dict:
+    from ..data.features import KIND_CODE, KINDS
+    from .loss import batch_conditions
+
+    spreads_h, spreads_p, errs = [], [], []
+    for kind in KINDS:
+        sel = val_t["kind"] == KIND_CODE[kind]
+        if not sel.any():
+            continue
+        pred = ens.predict(batch_conditions(val_t, sel), kind, cfg.loss.select)
+        spreads_h.append(pred.holdup_std)
+        spreads_p.append(pred.pgrad_std / pred.pgrad_mean.abs())
+        errs.append(pred.holdup_mean - val_t["holdup"][sel])
+    h, p, e = torch.cat(spreads_h), torch.cat(spreads_p), torch.cat(errs)
+    e = e[torch.isfinite(e)]
+    return {"n_members": len(ens), "val_holdup_std_mean": float(torch.nanmean(h)),
+            "val_pgrad_rel_std_mean": float(torch.nanmean(p)),
+            "val_mean_holdup_rmse": float(torch.sqrt((e**2).mean())) if e.numel() else math.nan}
