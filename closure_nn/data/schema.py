@@ -68,8 +68,8 @@ class ColumnSpec:
 
 def _note_side(name: str) -> str:
     """Side of the range the physics note of ``name`` explains (closure_nn.physics.checks)."""
-    low = name in getattr(_checks, "_LOW_NOTE", {name})
-    high = name in getattr(_checks, "_HIGH_NOTE", {name})
+    low = name in _checks.LOW_NOTE
+    high = name in _checks.HIGH_NOTE
     return "both" if low == high else "low" if low else "high"
 
 

@@ -33,8 +33,8 @@ RANGES: dict[str, tuple[float, float, str, str]] = {
 }
 POSITIVE = {"D", "rhol", "rhog", "mul", "mug", "sigma", "g"}
 #: fields whose note explains the LOW side of the range (for the others it explains the high side)
-_LOW_NOTE = {"vsl", "vsg", "theta"}
-_HIGH_NOTE = {"D", "theta", "roughness", "mul"}
+LOW_NOTE = {"vsl", "vsg", "theta"}
+HIGH_NOTE = {"D", "theta", "roughness", "mul"}
 
 
 def check_range(name: str, values: torch.Tensor, where: str = "") -> None:
@@ -47,7 +47,7 @@ def check_range(name: str, values: torch.Tensor, where: str = "") -> None:
         x = float(v[i])
         loc = f"{where}, " if where else ""
         row = f"row {i}, " if v.numel() > 1 else ""
-        show = (x < lo and name in _LOW_NOTE) or (x > hi and name in _HIGH_NOTE)
+        show = (x < lo and name in LOW_NOTE) or (x > hi and name in HIGH_NOTE)
         extra = f" ({note})" if note and show else ""
         what = "is not a number" if math.isnan(x) else "is out of range"
         raise InputError(f"{loc}{row}{name} = {x:.6g} {unit} {what}; expected {lo:g} to {hi:g} {unit}{extra}")
