@@ -11,6 +11,6 @@ stamp=.venv/.closure-nn-installed
 if [ ! -f "$stamp" ] || [ pyproject.toml -nt "$stamp" ]; then
   .venv/bin/python -m pip install -q --upgrade pip >/dev/null 2>&1 || true
   .venv/bin/python -m pip install -q "torch==2.13.0"
-  .venv/bin/python -m pip install -q -e ".[test,fluids]"
+  .venv/bin/python -m pip install -q -e ".[test,coolprop]"
   touch "$stamp"
 fi

@@ -30,6 +30,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--T", type=float, default=293.15, help="temperature [K], for the gas density (default 293.15)")
     p.add_argument("--M-g", type=float, default=AIR_MOLAR_MASS, help="gas molar mass [kg/mol] (default air)")
     p.add_argument("--Z", type=float, default=1.0, help="gas compressibility factor [-] (default 1)")
+    p.add_argument("--gas-fluid", default=None,
+                   help="CoolProp fluid name for the gas (e.g. Methane, Nitrogen); sets rhog and mug from --p/--T")
     p.add_argument("--json", action="store_true", help="print the result as JSON")
 
 
@@ -37,11 +39,19 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     import torch
 
     cfg = load_config("point", overrides)
-    rhog = args.rhog
+    rhog, mug = args.rhog, args.mug
+    if args.gas_fluid:
+        from ..fluid_properties import named_fluid
+        from ..physics.checks import InputError
+
+        if args.p is None:
+            raise InputError("--gas-fluid needs --p (absolute pressure, Pa) and --T (K)")
+        props = named_fluid(args.gas_fluid, args.p, args.T)
+        rhog, mug = float(props.rho), float(props.mu)
     if rhog is None:
         rhog = float(gas_density(torch.tensor(args.p), torch.tensor(args.T), torch.tensor(args.M_g), args.Z)) if args.p else 1.2
     cond = make_conditions(vsl=[args.vsl], vsg=[args.vsg], D=args.D, theta=math.radians(args.theta_deg),
-                           roughness=args.roughness, rhol=args.rhol, rhog=rhog, mul=args.mul, mug=args.mug,
+                           roughness=args.roughness, rhol=args.rhol, rhog=rhog, mul=args.mul, mug=mug,
                            sigma=args.sigma)
     check_conditions(cond, where="command line")
     closure = build_closure(cfg.closure)

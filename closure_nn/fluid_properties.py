@@ -1,0 +1,66 @@
+"""Named-fluid properties through CoolProp (optional extra ``closure-nn[coolprop]``).
+
+CoolProp (Bell, Wronski, Quoilin & Lemort 2014, Ind. Eng. Chem. Res. 53(6):2498-2508) gives
+density, viscosity and compressibility of pure fluids and predefined mixtures from reference
+equations of state. This module is a thin, scalar-friendly wrapper used at the edges (CLI,
+line definitions, data preparation); the physics core only sees the resulting numbers.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .physics.checks import InputError
+
+
+def coolprop_available() -> bool:
+    """True when the CoolProp package can be imported."""
+    try:
+        import CoolProp.CoolProp  # noqa: F401
+    except ImportError:
+        return False
+    return True
+
+
+@dataclass(frozen=True)
+class PhaseProperties:
+    """Density [kg/m3], dynamic viscosity [Pa s], compressibility factor Z [-], molar mass [kg/mol]."""
+
+    rho: np.ndarray
+    mu: np.ndarray
+    Z: np.ndarray
+    molar_mass: float
+
+
+def named_fluid(fluid: str, p, T) -> PhaseProperties:
+    """Properties of the CoolProp fluid ``fluid`` (e.g. 'Methane', 'Nitrogen', 'Air', 'Water')
+    at absolute pressure p [Pa] and temperature T [K] (scalars or arrays, broadcast).
+
+    >>> props = named_fluid("Water", 101325.0, 293.15)   # doctest: +SKIP
+    >>> round(float(props.rho), 1)                        # doctest: +SKIP
+    998.2
+    """
+    try:
+        import CoolProp.CoolProp as CP
+    except ImportError:
+        raise InputError(f"fluid {fluid!r} needs CoolProp: install the extra with `pip install closure-nn[coolprop]`, "
+                         "or give densities and viscosities directly") from None
+    p, T = np.broadcast_arrays(np.asarray(p, dtype=float), np.asarray(T, dtype=float))
+    try:
+        M = float(CP.PropsSI("M", fluid))
+        rho = np.vectorize(lambda pp, tt: CP.PropsSI("D", "P", pp, "T", tt, fluid))(p, T)
+        mu = np.vectorize(lambda pp, tt: CP.PropsSI("V", "P", pp, "T", tt, fluid))(p, T)
+        Z = np.vectorize(lambda pp, tt: CP.PropsSI("Z", "P", pp, "T", tt, fluid))(p, T)
+    except ValueError as exc:
+        raise InputError(f"CoolProp could not evaluate fluid {fluid!r} at p = {p.ravel()[0]:g} Pa, "
+                         f"T = {T.ravel()[0]:g} K: {str(exc).splitlines()[0]}") from None
+    return PhaseProperties(rho=rho, mu=mu, Z=Z, molar_mass=M)
+
+
+def surface_tension(fluid: str, T) -> np.ndarray:
+    """Saturated-liquid surface tension [N/m] of a pure CoolProp fluid at T [K]."""
+    import CoolProp.CoolProp as CP
+
+    T = np.asarray(T, dtype=float)
+    return np.vectorize(lambda tt: CP.PropsSI("I", "T", tt, "Q", 0, fluid))(T)
