@@ -313,19 +313,20 @@ def _corrupt(vals: pd.DataFrame, truth: pd.DataFrame, sheet: pd.DataFrame, rng: 
                 out.append(dict(run_id=run_id[a], kind=f"swap_{col}",
                                 description=f"{what} of runs {run_id[i]} and {run_id[j]} swapped when the sheet was "
                                             f"typed up: {x[a]:.4g}{unit} written {x[b]:.4g}{unit}"))
-            vals.loc[i, [col, f"{col}_sd"]], vals.loc[j, [col, f"{col}_sd"]] = (
-                vals.loc[j, [col, f"{col}_sd"]].to_numpy(), vals.loc[i, [col, f"{col}_sd"]].to_numpy())
+            pair = [col, f"{col}_sd"]
+            row_i, row_j = vals.loc[i, pair].to_numpy(copy=True), vals.loc[j, pair].to_numpy(copy=True)
+            vals.loc[i, pair], vals.loc[j, pair] = row_j, row_i
             x = vals[col].to_numpy()
             done += 1
         raise RuntimeError(f"demo generator: no pair found for swap_{col}")
 
     swap("holdup", CORRUPTIONS["swap_holdup"] // 2, lambda a, b: np.abs(b - a) > 0.25, "holdup", "")
     swap("pgrad", CORRUPTIONS["swap_pgrad"] // 2,
-         lambda a, b: (np.abs(b) > 3 * np.abs(a)) | (np.abs(a) > 3 * np.abs(b)), "pgrad", " Pa/m")
+         lambda a, b: (np.abs(b) > 4 * np.abs(a)) | (np.abs(a) > 4 * np.abs(b)), "pgrad", " Pa/m")
     for _ in range(CORRUPTIONS["pgrad_mbar_as_pa"]):
         i = pick(np.isfinite(P) & (P > 300.0))
         old = vals.loc[i, "pgrad"]
-        vals.loc[i, ["pgrad", "pgrad_sd"]] = vals.loc[i, ["pgrad", "pgrad_sd"]].to_numpy() / 100.0
+        vals.loc[i, ["pgrad", "pgrad_sd"]] = vals.loc[i, ["pgrad", "pgrad_sd"]].to_numpy(copy=True) / 100.0
         out.append(dict(run_id=run_id[i], kind="pgrad_mbar_as_pa",
                         description=f"pgrad typed in mbar/m under the Pa/m header: {old:.4g} Pa/m written "
                                     f"{old / 100:.4g} (pgrad_sd likewise)"))
