@@ -172,20 +172,25 @@ def export_plain(closure: NeuralClosure, path: str | os.PathLike) -> Path:
 
     Evaluation (all float64), for features x (11 values, definitions in
     :mod:`closure_nn.physics.groups`) and the baseline factors f_base (correction mode):
-    ``z = (x - mean) / std``; for each layer ``z = act(W z + b)`` (no activation after the last);
-    correction mode ``f = f_base * exp(bound * tanh(z))``, direct mode
-    ``f = exp(log_f_ref + span * tanh(z / span))``; outputs ordered f_wl, f_wg, f_i.
+    ``z = (x - mean) / std``; each branch takes ``z[inputs]``, applies its layers
+    ``y = act(W y + b)`` (no activation after the last) and yields the outputs listed in
+    ``outputs`` (indices into f_wl, f_wg, f_i), giving o; correction mode
+    ``f = f_base * exp(bound * tanh(o))``, direct mode ``f = exp(log_f_ref + span * tanh(o / span))``;
+    outputs ordered f_wl, f_wg, f_i.
     """
     import torch.nn as nn
 
-    linears = [m for m in closure.body if isinstance(m, nn.Linear)] + [closure.head]
+    branches = []
+    for branch, idx, outs in zip(closure.branches, closure.branch_inputs, closure.branch_outputs):
+        layers = [{"W": m.weight.detach().tolist(), "b": m.bias.detach().tolist()} for m in branch if isinstance(m, nn.Linear)]
+        branches.append({"inputs": list(idx), "outputs": list(outs), "layers": layers})
     spec = {
         "format": PLAIN_FORMAT, "format_version": 1, "feature_names": list(FEATURE_NAMES),
         "outputs": list(OUTPUT_NAMES), "activation": closure.activation, "mode": closure.mode,
         "bound": closure.bound, "direct_span": closure.direct_span, "log_f_ref": closure.log_f_ref.tolist(),
         "baseline": closure.hparams["baseline"],
         "scaler": {"mean": closure.feature_mean.tolist(), "std": closure.feature_std.tolist()},
-        "layers": [{"W": lin.weight.detach().tolist(), "b": lin.bias.detach().tolist()} for lin in linears],
+        "branches": branches,
         "activation_definitions": {"silu": "x / (1 + exp(-x))", "tanh": "tanh(x)",
                                    "softplus": "log(1 + exp(x))", "gelu": "0.5 x (1 + erf(x / sqrt(2)))"},
         "evaluation": export_plain.__doc__.split("Evaluation", 1)[1].strip(),

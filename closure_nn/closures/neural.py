@@ -80,6 +80,18 @@ class NeuralClosure(Closure):
     baseline : BaselineClosure or dict, optional
         The mechanistic baseline (constructor keywords if a dict); used by the correction mode
         and, in both modes, by the prior of the training loss. Default ``BaselineClosure()``.
+    inputs : dict, optional
+        Feature names each output sees, e.g. ``{'f_wl': ['log10_Re_L', 'frac', 'rel_rough'],
+        'f_wg': [...], 'f_i': None}`` (None: all features). Given, the model is one MLP per
+        output on its own features; absent, one shared MLP with three outputs. Restricting the
+        wall factors to wall variables (their Reynolds number, roughness, level) mirrors the
+        single-phase form of wall friction in two-fluid models (Taitel & Dukler 1976).
+    learn : sequence of str, optional
+        The factors the network predicts (default all three); the others are the baseline's.
+        Holdup and pressure-gradient data give two balance equations per state for three
+        factors, so learning all three leaves one direction fixed only by the model structure,
+        the prior and the smoothness penalty; learning ``['f_i']`` on a trusted wall
+        correlation is fully determined by the data.
 
     >>> from closure_nn.physics.conditions import make_conditions
     >>> from closure_nn.physics.local_state import local_state
@@ -91,7 +103,8 @@ class NeuralClosure(Closure):
 
     def __init__(self, hidden: Sequence[int] = (32, 32), activation: str = "silu", mode: str = "correction",
                  bound: float = 1.0, direct_span: float = 6.0,
-                 baseline: BaselineClosure | dict | None = None) -> None:
+                 baseline: BaselineClosure | dict | None = None, inputs: dict | None = None,
+                 learn: Sequence[str] | None = None) -> None:
         super().__init__()
         if mode not in MODES:
             raise ValueError(f"unknown neural closure mode {mode!r}; known: {', '.join(MODES)}")
@@ -107,15 +120,42 @@ class NeuralClosure(Closure):
         self.mode, self.activation, self.bound, self.direct_span = mode, activation, float(bound), float(direct_span)
         self.hidden = tuple(int(h) for h in hidden)
         n_in = len(FEATURE_NAMES)
-        layers: list[nn.Module] = []
-        width = n_in
-        for h in self.hidden:
-            layers += [nn.Linear(width, h), ACTIVATIONS[activation]()]
-            width = h
-        self.head = nn.Linear(width, N_OUT)
-        self.body = nn.Sequential(*layers)
-        nn.init.zeros_(self.head.weight)
-        nn.init.zeros_(self.head.bias)
+        self.learn = list(OUTPUT_NAMES) if learn is None else [k for k in OUTPUT_NAMES if k in set(learn)]
+        if learn is not None and (set(learn) - set(OUTPUT_NAMES) or not self.learn):
+            raise ValueError(f"learn: expected a non-empty subset of {', '.join(OUTPUT_NAMES)}, got {list(learn)}")
+        if self.learn != list(OUTPUT_NAMES) and mode != "correction":
+            raise ValueError("learn: a subset of the factors needs mode='correction'")
+        learned = [OUTPUT_NAMES.index(k) for k in self.learn]
+        if inputs is None:
+            self.inputs = None
+            branches = [(list(range(n_in)), learned)]
+        else:
+            unknown = set(inputs) - set(OUTPUT_NAMES)
+            if unknown:
+                raise ValueError(f"inputs: unknown output(s) {', '.join(sorted(unknown))}; known: {', '.join(OUTPUT_NAMES)}")
+            self.inputs = {k: (None if inputs.get(k) is None else list(inputs[k])) for k in OUTPUT_NAMES}
+            branches = []
+            for j, k in enumerate(OUTPUT_NAMES):
+                if k not in self.learn:
+                    continue
+                names = self.inputs[k] or list(FEATURE_NAMES)
+                bad = [n for n in names if n not in FEATURE_NAMES]
+                if bad:
+                    raise ValueError(f"inputs.{k}: unknown feature(s) {', '.join(bad)}; known: {', '.join(FEATURE_NAMES)}")
+                branches.append(([FEATURE_NAMES.index(n) for n in names], [j]))
+        self.branch_inputs = [b[0] for b in branches]
+        self.branch_outputs = [b[1] for b in branches]
+        self.branches = nn.ModuleList()
+        for idx, outs in branches:
+            layers: list[nn.Module] = []
+            width = len(idx)
+            for h in self.hidden:
+                layers += [nn.Linear(width, h), ACTIVATIONS[activation]()]
+                width = h
+            head = nn.Linear(width, len(outs))
+            nn.init.zeros_(head.weight)
+            nn.init.zeros_(head.bias)
+            self.branches.append(nn.Sequential(*layers, head))
         self.double()
         f64 = dict(dtype=torch.float64)
         self.register_buffer("feature_mean", torch.zeros(n_in, **f64))
@@ -133,7 +173,8 @@ class NeuralClosure(Closure):
         """JSON-able constructor arguments (what a bundle needs to rebuild the model)."""
         b = self.baseline
         return {"hidden": list(self.hidden), "activation": self.activation, "mode": self.mode,
-                "bound": self.bound, "direct_span": self.direct_span,
+                "bound": self.bound, "direct_span": self.direct_span, "inputs": self.inputs,
+                "learn": list(self.learn),
                 "baseline": {"wall": b.wall_name, "interface": b.interface_name,
                              "annular_interface": b.annular_name, "interface_kwargs": dict(b.interface_kwargs)}}
 
@@ -150,13 +191,15 @@ class NeuralClosure(Closure):
         self.domain_threshold = torch.as_tensor(float(threshold), dtype=torch.float64)
 
     def freeze_layers(self, n: int) -> None:
-        """Stop training the first ``n`` hidden Linear layers (fine-tuning); the head always trains."""
-        linears = [m for m in self.body if isinstance(m, nn.Linear)]
-        if n > len(linears):
-            raise ValueError(f"cannot freeze {n} layers: the model has {len(linears)} hidden layers")
-        for i, lin in enumerate(linears):
-            for p in lin.parameters():
-                p.requires_grad_(i >= n)
+        """Stop training the first ``n`` hidden Linear layers of every branch (fine-tuning); the
+        output layer always trains."""
+        if n > len(self.hidden):
+            raise ValueError(f"cannot freeze {n} layers: the model has {len(self.hidden)} hidden layers")
+        for branch in self.branches:
+            linears = [m for m in branch if isinstance(m, nn.Linear)]
+            for i, lin in enumerate(linears):
+                for p in lin.parameters():
+                    p.requires_grad_(i >= n or i == len(linears) - 1)
 
     # ----------------------------------------------------------------- evaluation
     def standardise(self, x: torch.Tensor) -> torch.Tensor:
@@ -169,7 +212,12 @@ class NeuralClosure(Closure):
         Correction mode: :math:`b\\tanh(o)`, the log of f / f_base. Direct mode:
         :math:`s\\tanh(o/s)`, the log of f / f_ref.
         """
-        out = self.head(self.body(z))
+        parts = [branch(z[..., idx]) for branch, idx in zip(self.branches, self.branch_inputs)]
+        out = parts[0] if len(parts) == 1 else torch.cat(parts, dim=-1)  # branches ordered by output
+        if out.shape[-1] != N_OUT:  # factors not learned keep a zero log-correction
+            full = torch.zeros(*out.shape[:-1], N_OUT, dtype=out.dtype)
+            full[..., [j for outs in self.branch_outputs for j in outs]] = out
+            out = full
         if self.mode == "correction":
             return self.bound * torch.tanh(out)
         return self.direct_span * torch.tanh(out / self.direct_span)

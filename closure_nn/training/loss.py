@@ -154,6 +154,9 @@ class ClosureLoss(nn.Module):
         sh, sp = uncertainties(batch, cfg)
         H, P = batch["holdup"], batch["pgrad"]
         has_h, has_p = torch.isfinite(H), torch.isfinite(P)
+        wt = cfg.weights
+        use_res = wt["phase_residual"] > 0 or wt["combined_residual"] > 0
+        use_data = wt["data_holdup"] > 0 or wt["data_pgrad"] > 0
         no_root = 0
         reg_states: list[tuple[LocalState, torch.Tensor]] = []
         for kind in KINDS:
@@ -164,6 +167,7 @@ class ClosureLoss(nn.Module):
                 c = batch_conditions(batch, meas)
                 s = local_state(c, frac_from_holdup(H[meas], kind), kind)
                 reg_states.append((s, w_row[meas]))
+            if meas.any() and use_res:
                 f = closure(s)
                 tau = shear_stresses(s, f)
                 both = has_p[meas]
@@ -181,7 +185,7 @@ class ClosureLoss(nn.Module):
                     acc.add("combined_residual", self._combined(closure, so, to), w_row[meas][only])
             # --- (3): data misfit of the closure's equilibrium
             data = sel & (has_h | has_p)
-            if data.any():
+            if data.any() and use_data:
                 sol = solve_separated(batch_conditions(batch, data), closure, kind, select=cfg.select,
                                       n_grid=cfg.n_grid)
                 ok = sol.found

@@ -1,0 +1,153 @@
+"""Tests of the physics-regularised loss (closure_nn.training.loss).
+
+Sources: the two-fluid phase balances of Taitel & Dukler (1976), AIChE J. 22(1):47-55, eqs. 1-3;
+a closure reproduces the equilibrium it generated (self-consistency, common practice); the
+analytic values of each normalised term follow from the definitions in the module docstring;
+gradient checks against central finite differences are common practice.
+"""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pandas as pd
+import pytest
+import torch
+
+from closure_nn.closures.baseline import BaselineClosure
+from closure_nn.closures.neural import NeuralClosure
+from closure_nn.data.features import FeatureScaler, state_features, table_conditions
+from closure_nn.physics.holdup_roots import solve_separated
+from closure_nn.physics.patterns import kh_gas_velocity
+from closure_nn.training.loss import TERMS, ClosureLoss, LossSettings
+from closure_nn.training.tables import table_tensors
+
+ALL_ON = {k: 1.0 for k in TERMS}
+
+
+def make_table(closure, n: int = 24, seed: int = 0, kind: str = "stratified", roughness: float = 5e-5) -> pd.DataFrame:
+    """Noise-free synthetic rows: the closure's own separated equilibrium (invented conditions)."""
+    r = np.random.default_rng(seed)
+    annular = kind == "annular"
+    df = pd.DataFrame(dict(
+        vsl=10 ** r.uniform(-2.3, -1.0, n), vsg=r.uniform(20, 30, n) if annular else 10 ** r.uniform(0.2, 1.1, n),
+        D=r.uniform(0.04, 0.08, n), theta=r.uniform(-0.01, 0.01, n), roughness=roughness, rhol=998.0, rhog=1.2,
+        mul=1e-3, mug=1.8e-5, sigma=0.072))
+    sol = solve_separated(table_conditions(df), closure, kind)
+    assert bool(sol.found.all())
+    df["holdup"] = sol.holdup.detach().numpy()
+    df["pgrad"] = sol.pgrad.total.detach().numpy()
+    df["pattern"] = "annular" if annular else "stratified_wavy"
+    df["source"] = "synthetic"
+    return df
+
+
+def fitted_model(df: pd.DataFrame, **kw) -> NeuralClosure:
+    net = NeuralClosure(hidden=(8, 8), **kw)
+    sc = FeatureScaler.fit(state_features(df, net.baseline))
+    net.set_scaler(sc.mean, sc.std)
+    return net
+
+
+def test_every_term_vanishes_for_the_generating_closure():
+    """Baseline data + zero-correction model = the baseline: all terms ~0 (self-consistency)."""
+    base = BaselineClosure()
+    both = make_table(base, 20, seed=1)
+    only_h = make_table(base, 10, seed=2).assign(pgrad=np.nan)
+    only_p = make_table(base, 10, seed=3).assign(holdup=np.nan)
+    ann = make_table(base, 8, seed=4, kind="annular")
+    df = pd.concat([both, only_h, only_p, ann], ignore_index=True)
+    net = fitted_model(df)
+    total, terms, counts = ClosureLoss(LossSettings(weights=ALL_ON))(net, table_tensors(df))
+    assert counts["phase_residual"] == 28 and counts["combined_residual"] == 10
+    assert counts["data_holdup"] == 38 and counts["data_pgrad"] == 38 and counts["no_root"] == 0
+    for k in ("phase_residual", "combined_residual", "data_holdup", "data_pgrad"):
+        assert float(terms[k]) < 1e-12, (k, float(terms[k]))
+    assert float(terms["prior"]) == 0.0 and float(terms["smooth"]) == 0.0
+    assert float(total) < 1e-12
+
+
+def test_phase_residual_counts_pgrad_standard_deviations():
+    """pgrad off by k sigma: R_L/A_L = R_G/A_G = k sigma, so the term is k^2 (module docstring)."""
+    base = BaselineClosure()
+    df = make_table(base, 12)
+    sd = 0.1 * df["pgrad"].abs()
+    df = df.assign(pgrad=df["pgrad"] + 2.5 * sd, pgrad_sd=sd)
+    w = {k: 0.0 for k in TERMS} | {"phase_residual": 1.0}
+    _, terms, _ = ClosureLoss(LossSettings(weights=w))(fitted_model(df), table_tensors(df))
+    assert float(terms["phase_residual"]) == pytest.approx(2.5**2, rel=1e-9)
+
+
+def test_holdup_misfit_is_scaled_by_its_uncertainty():
+    """Measured holdup shifted by delta: data_holdup = (delta / holdup_sd)^2 (definition)."""
+    base = BaselineClosure()
+    df = make_table(base, 12).assign(pgrad=np.nan)
+    df = df.assign(holdup=df["holdup"] + 0.01, holdup_sd=0.004)
+    w = {k: 0.0 for k in TERMS} | {"data_holdup": 1.0}
+    _, terms, _ = ClosureLoss(LossSettings(weights=w))(fitted_model(df), table_tensors(df))
+    assert float(terms["data_holdup"]) == pytest.approx((0.01 / 0.004) ** 2, rel=1e-9)
+
+
+def test_pattern_term_penalises_a_contradicting_equilibrium():
+    """Kelvin-Helmholtz margin (Taitel & Dukler 1976): a stable stratified equilibrium observed as
+    intermittent is penalised, observed as stratified it is not."""
+    base = BaselineClosure()
+    df = make_table(base, 6, seed=5).assign(holdup=np.nan, pgrad=np.nan)
+    sol = solve_separated(table_conditions(df), base)
+    margin = sol.state.u_G / kh_gas_velocity(sol.state.cond, sol.state) - 1
+    stable = (margin < -0.1).numpy()
+    assert stable.sum() >= 3
+    df = df[stable].reset_index(drop=True)
+    net = fitted_model(df)
+    w = {k: 0.0 for k in TERMS} | {"pattern": 1.0}
+    loss = ClosureLoss(LossSettings(weights=w, pattern_margin=0.05))
+    _, t_ok, c_ok = loss(net, table_tensors(df.assign(pattern="stratified_smooth")))
+    assert c_ok["pattern"] == len(df) and float(t_ok["pattern"]) == 0.0
+    total, t_bad, _ = loss(net, table_tensors(df.assign(pattern="intermittent")))
+    m = margin[torch.as_tensor(stable)]
+    assert float(t_bad["pattern"]) == pytest.approx(float(((0.05 - m) ** 2).mean()), rel=1e-9)
+    total.backward()
+    assert any(p.grad is not None and float(p.grad.abs().sum()) > 0 for p in net.parameters())
+
+
+def test_prior_and_smoothness_grow_away_from_the_baseline():
+    base = BaselineClosure()
+    df = make_table(base, 10)
+    net = fitted_model(df)
+    with torch.no_grad():
+        for p in net.parameters():
+            p.add_(0.3 * torch.randn(p.shape, generator=torch.Generator().manual_seed(0), dtype=p.dtype))
+    w = {k: 0.0 for k in TERMS} | {"prior": 1.0, "smooth": 1.0}
+    _, terms, _ = ClosureLoss(LossSettings(weights=w))(net, table_tensors(df))
+    assert float(terms["prior"]) > 1e-4 and float(terms["smooth"]) > 1e-4
+
+
+def test_data_loss_gradient_matches_finite_differences():
+    """Implicit-function gradient of the solver misfit vs central differences (common practice)."""
+    ref = BaselineClosure(wall="churchill", interface="andritsos_hanratty", interface_kwargs={"coef": 25.0})
+    df = make_table(ref, 8, roughness=1e-4)
+    net = fitted_model(df)
+    with torch.no_grad():
+        for p in net.parameters():
+            p.add_(0.2 * torch.randn(p.shape, generator=torch.Generator().manual_seed(1), dtype=p.dtype))
+    w = {k: 0.0 for k in TERMS} | {"data_holdup": 1.0, "data_pgrad": 1.0}
+    loss = ClosureLoss(LossSettings(weights=w))
+    t = table_tensors(df)
+    total, _, _ = loss(net, t)
+    total.backward()
+    param = net.branches[0][-1].bias  # output bias of the f_wl branch
+    g = float(param.grad[0])
+    h = 1e-6
+    vals = []
+    for sign in (1, -1):
+        with torch.no_grad():
+            param[0] += sign * h
+            vals.append(float(loss(net, t)[0]))
+            param[0] -= sign * h
+    fd = (vals[0] - vals[1]) / (2 * h)
+    assert math.isfinite(g) and g == pytest.approx(fd, rel=1e-5, abs=1e-8)
+
+
+def test_unknown_loss_term_is_rejected():
+    with pytest.raises(ValueError, match="unknown loss term"):
+        LossSettings(weights={"data": 1.0})
