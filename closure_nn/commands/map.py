@@ -1,0 +1,74 @@
+"""``closure-nn map``: a flow-pattern map of the baseline (filled) and optionally a learned closure
+(dashed boundaries), with the rows of a measurement table drawn by their observed pattern.
+
+Writes ``pattern_map.png``, ``pattern_map.csv`` (grid codes as names), ``summary.json`` and the
+resolved config into a run folder.
+"""
+from __future__ import annotations
+
+import argparse
+import math
+
+from ..caution import CAUTION
+from ..config import load_config
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--data", default=None, help="measurement table to overlay (.csv or .parquet)")
+    p.add_argument("--learned", default=None, help="closure bundle drawn as dashed boundaries (same as learned=PATH)")
+    p.add_argument("--out", default=None, help="run folder root (default: run_root of the config)")
+
+
+def run(args: argparse.Namespace, overrides: list[str]) -> int:
+    import numpy as np
+    import pandas as pd
+    from omegaconf import OmegaConf
+
+    from ..closures.registry import build_closure
+    from ..physics.vocabulary import PATTERNS
+    from ..report.pattern_map import compute_pattern_map, disagreement, plot_pattern_map
+    from ..run_folder import make_run_dir, write_json
+
+    cfg = load_config("map", overrides)
+    fluids = dict(OmegaConf.to_container(cfg.fluids, resolve=True))
+    kw = dict(D=float(cfg.D), theta_deg=float(cfg.theta_deg), fluids=fluids, roughness=float(cfg.roughness),
+              vsl=tuple(cfg.vsl), vsg=tuple(cfg.vsg), n=int(cfg.n), solver=dict(cfg.solver))
+    from ..physics.checks import check_conditions
+    from ..physics.conditions import make_conditions
+
+    check_conditions(make_conditions(vsl=list(cfg.vsl), vsg=list(cfg.vsg), D=kw["D"], theta=math.radians(kw["theta_deg"]),
+                                     roughness=kw["roughness"], **fluids), where="map config")
+    base = compute_pattern_map(build_closure(cfg.closure), **kw)
+    learned_path = args.learned or cfg.learned
+    other = compute_pattern_map(build_closure({"kind": "bundle", "path": learned_path}), **kw) if learned_path else None
+    data, note = None, ""
+    if args.data:
+        from ..data.table_io import read_table
+        from ..data.validate import validate_table
+
+        val = validate_table(read_table(args.data), path=args.data)
+        df = val.clean
+        near = ((df["D"] / kw["D"] - 1).abs() <= float(cfg.data_D_rel)) & \
+               ((np.degrees(df["theta"]) - kw["theta_deg"]).abs() <= float(cfg.data_theta_deg))
+        data = df[near]
+        note = (f"Points: {len(data)} of {len(df)} valid rows of {args.data} with D within "
+                f"{100 * float(cfg.data_D_rel):g} % and inclination within {float(cfg.data_theta_deg):g} deg of the map.")
+    run_dir = make_run_dir("map", args.out or cfg.run_root)
+    (run_dir / "config.yaml").write_text(OmegaConf.to_yaml(cfg))
+    png = plot_pattern_map(base, run_dir / "pattern_map.png", other=other, data=data, data_note=note)
+    grid = pd.DataFrame({"vsl": np.repeat(base.vsl, len(base.vsg)), "vsg": np.tile(base.vsg, len(base.vsl)),
+                         "pattern": [PATTERNS[int(c)] for c in base.codes.ravel()]})
+    if other is not None:
+        grid["pattern_learned"] = [PATTERNS[int(c)] for c in other.codes.ravel()]
+    grid.to_csv(run_dir / "pattern_map.csv", index=False)
+    summary = {"closure": base.label, "learned": other.label if other else None, **{k: v for k, v in kw.items() if k != "solver"},
+               "share_disagreeing": disagreement(base, other) if other else None,
+               "data_points": 0 if data is None else len(data), "caution": CAUTION}
+    write_json(run_dir / "summary.json", summary)
+    print(f"pattern map of {base.label}: {png}")
+    if other is not None:
+        print(f"learned closure {other.label} differs on {100 * summary['share_disagreeing']:.1f} % of the grid")
+    if note:
+        print(note)
+    print(CAUTION)
+    return 0
