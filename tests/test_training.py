@@ -180,3 +180,13 @@ def test_ddp_with_two_cpu_processes(tables):
     m = train(cfg)
     assert m["epochs"] == 2 and math.isfinite(m["val"]["holdup_rmse"])
     assert load_bundle(m["bundle"]).bundle_metadata["config"]["trainer"]["devices"] == 2
+
+
+def test_cli_train_needs_a_table_and_runs(tables, capsys):
+    from closure_nn.cli import main
+
+    assert main(["train"]) == 2
+    assert "data.train" in capsys.readouterr().err
+    assert main(["train", f"data.train={tables['lab']}", f"run_root={tables['root']}", *TINY,
+                 "trainer.max_epochs=1", "run_name=cli"]) == 0
+    assert (tables["root"] / "cli" / "bundle" / "bundle.json").exists()

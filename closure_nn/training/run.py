@@ -23,7 +23,7 @@ from __future__ import annotations
 import copy
 import csv
 import math
-import os
+import time
 from pathlib import Path
 
 import lightning as L
@@ -139,7 +139,11 @@ def _fit_one(cfg: DictConfig, train_df: pd.DataFrame, val_t: dict, replay_t: dic
         log_every_n_steps=int(t.log_every_n_steps), inference_mode=False, num_sanity_val_steps=0,
         gradient_clip_val=t.gradient_clip_val, default_root_dir=out_dir,
     )
+    t0 = time.perf_counter()
     trainer.fit(task, datamodule=dm, ckpt_path=cfg.resume or None)
+    fit_seconds = time.perf_counter() - t0
+    last = out_dir / "checkpoints" / "last.ckpt"  # read back: spawned DDP workers do not return the loop state
+    epochs = int(torch.load(last, map_location="cpu", weights_only=False)["epoch"]) + 1 if last.exists() else 0
     best = ckpt.best_model_path
     if best:
         state = torch.load(best, map_location="cpu", weights_only=False)["state_dict"]
@@ -147,9 +151,10 @@ def _fit_one(cfg: DictConfig, train_df: pd.DataFrame, val_t: dict, replay_t: dic
     closure = task.closure.eval()
     score = ckpt.best_model_score
     metrics.update({
-        "epochs": int(trainer.current_epoch), "best_checkpoint": str(best),
+        "epochs": epochs, "fit_seconds": fit_seconds, "best_checkpoint": str(best),
         f"best_{t.monitor.replace('/', '_')}": float(score) if score is not None else math.nan,
-        "seconds_per_epoch": sum(timer.seconds) / len(timer.seconds) if timer.seconds else math.nan,
+        # training part of an epoch (timer callback); under spawned DDP the whole fit / epochs
+        "seconds_per_epoch": sum(timer.seconds) / len(timer.seconds) if timer.seconds else fit_seconds / max(epochs, 1),
         "train": accuracy(closure, train_t, cfg.loss.select), "val": accuracy(closure, val_t, cfg.loss.select),
     })
     if replay_t is not None:

@@ -1,0 +1,66 @@
+"""``closure-nn train``: pre-train, fine-tune or update a neural closure (conf/train.yaml).
+
+Examples (key=value arguments are Hydra overrides)::
+
+    closure-nn train data.train=synthetic.csv
+    closure-nn train stage=finetune init_bundle=runs/train-.../bundle data.train=lab.csv
+    closure-nn train resume=runs/train-.../checkpoints/last.ckpt
+"""
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+from ..caution import CAUTION
+from ..config import load_config
+from ..physics.checks import InputError
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--show-config", action="store_true", help="print the composed config and exit")
+
+
+def _config(overrides: list[str]):
+    """Compose conf/train.yaml; with ``resume=<ckpt>`` start from that run's saved config."""
+    from omegaconf import OmegaConf
+
+    resume = [o.split("=", 1)[1] for o in overrides if o.startswith("resume=")]
+    if not resume:
+        return load_config("train", overrides)
+    saved = Path(resume[-1]).resolve().parent.parent / "config.yaml"
+    if not saved.exists():
+        raise InputError(f"resume: {saved} not found (expected <run folder>/checkpoints/<file>.ckpt)")
+    cfg = OmegaConf.load(saved)
+    try:
+        cfg.merge_with_dotlist(list(overrides))
+    except Exception as exc:  # OmegaConf raises several types for a bad dotlist
+        raise InputError(f"config train: {str(exc).splitlines()[0]}") from None
+    return cfg
+
+
+def run(args: argparse.Namespace, overrides: list[str]) -> int:
+    from omegaconf import OmegaConf
+    from omegaconf.errors import MissingMandatoryValue
+
+    cfg = _config(overrides)
+    if args.show_config:
+        print(OmegaConf.to_yaml(cfg))
+        return 0
+    try:
+        OmegaConf.to_container(cfg, resolve=True, throw_on_missing=True)
+    except MissingMandatoryValue as exc:
+        raise InputError(f"config train: a value is required for {exc.full_key} (give {exc.full_key}=...)") from None
+    from ..training.run import train  # imports Lightning
+
+    m = train(cfg)
+    val = m.get("val") or m.get("ensemble", {})
+    print(f"stage {m['stage']}: run folder {m['run_dir']}")
+    if "holdup_rmse" in val:
+        print(f"validation: holdup RMSE {val['holdup_rmse']:.4g} (before {m['val_initial']['holdup_rmse']:.4g}), "
+              f"pgrad relative RMS error {val['pgrad_rel_rmse']:.4g} (before {m['val_initial']['pgrad_rel_rmse']:.4g})")
+    if "forgetting" in m:
+        f = m["forgetting"]
+        print(f"earlier data: holdup RMSE change {f['holdup_rmse']:+.4g}, pgrad relative error change {f['pgrad_rel_rmse']:+.4g}")
+    print(f"bundle: {m['bundle']}")
+    print(CAUTION)
+    return 0
