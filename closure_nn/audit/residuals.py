@@ -206,7 +206,10 @@ def measured_residuals(
                 t_need = torch.where(R == 0, 0.0, t_need)
                 t_j = torch.maximum(S.abs().expand_as(R), t_need)
                 cross = torch.signbit(R[:, 1:]) != torch.signbit(R[:, :-1])
-                t_cross = torch.where(cross, torch.maximum(S[1:].abs(), S[:-1].abs()).expand_as(cross), float("inf"))
+                # zero of R by linear interpolation inside a cell whose ends differ in sign
+                w = R[:, :-1] / (R[:, :-1] - R[:, 1:]).where(cross, torch.ones_like(R[:, 1:]))
+                s_zero = S[:-1] + (S[1:] - S[:-1]) * w.clamp(0.0, 1.0)
+                t_cross = torch.where(cross, s_zero.abs(), float("inf"))
                 t = torch.minimum(t_j.min(dim=1).values, t_cross.min(dim=1).values).clamp_max(T[-1])
                 out[f"{k}_e"] = torch.where(torch.signbit(out[f"{k}_raw"]), -t, t)
             branches.append(out)
