@@ -326,10 +326,11 @@ def _corrupt(vals: pd.DataFrame, truth: pd.DataFrame, sheet: pd.DataFrame, rng: 
     for _ in range(CORRUPTIONS["pgrad_mbar_as_pa"]):
         i = pick(np.isfinite(P) & (P > 300.0))
         old = vals.loc[i, "pgrad"]
-        vals.loc[i, ["pgrad", "pgrad_sd"]] = vals.loc[i, ["pgrad", "pgrad_sd"]].to_numpy(copy=True) / 100.0
+        vals.loc[i, "pgrad"] = old / 100.0  # the sheet's sd is computed from the value as written
+        vals.loc[i, "pgrad_sd"] = math.sqrt((PGRAD_SD_REL * old / 100.0) ** 2 + PGRAD_SD_ABS**2)
         out.append(dict(run_id=run_id[i], kind="pgrad_mbar_as_pa",
                         description=f"pgrad typed in mbar/m under the Pa/m header: {old:.4g} Pa/m written "
-                                    f"{old / 100:.4g} (pgrad_sd likewise)"))
+                                    f"{old / 100:.4g} (pgrad_sd computed from the written value)"))
     grav = truth["pgrad_gravity"].to_numpy()
     heavy = np.isfinite(P) & (np.abs(vals["theta"].to_numpy()) >= 3) & (np.abs(vals["theta"].to_numpy()) <= 5) \
         & (np.abs(grav) > 0.7 * np.abs(truth["pgrad"].to_numpy())) & (np.abs(P) > 150.0)
@@ -364,12 +365,19 @@ def _corrupt(vals: pd.DataFrame, truth: pd.DataFrame, sheet: pd.DataFrame, rng: 
 
 def write_demo(out_dir: str | Path = DEMO_DIR, seed: int = SEED) -> DemoCampaign:
     """Generate the campaign and write :data:`CAMPAIGN_FILE` and :data:`CORRUPTIONS_FILE` into ``out_dir``."""
+    camp = generate(seed)
+    write_files(camp, out_dir)
+    return camp
+
+
+def write_files(camp: DemoCampaign, out_dir: str | Path) -> dict[str, Path]:
+    """Write a generated campaign's two files into ``out_dir`` (UTF-8, '\\n' line ends); return the paths."""
     d = Path(out_dir)
     d.mkdir(parents=True, exist_ok=True)
-    camp = generate(seed)
-    (d / CAMPAIGN_FILE).write_text(camp.campaign_csv(), encoding="utf-8", newline="")
-    (d / CORRUPTIONS_FILE).write_text(camp.corruptions_csv(), encoding="utf-8", newline="")
-    return camp
+    paths = {"campaign": d / CAMPAIGN_FILE, "corruptions": d / CORRUPTIONS_FILE}
+    paths["campaign"].write_text(camp.campaign_csv(), encoding="utf-8", newline="")
+    paths["corruptions"].write_text(camp.corruptions_csv(), encoding="utf-8", newline="")
+    return paths
 
 
 def baseline_vs_truth(camp: DemoCampaign, closure=None) -> dict:
