@@ -18,17 +18,21 @@ residual_joint              likewise for e_joint, the measurement sd needed to c
                             balances at once: two equations in (H_L, pgrad) are closed only at
                             a closure equilibrium, so e_joint = min over the closure's
                             separated roots of max(|H_root - H|/sd_H, |pgrad_root - pgrad|/sd_p)
-holdup_vs_closure           |H_meas - H_closure| > c sqrt(sd_H^2 + model_holdup_sd^2); for
-                            stratified rows H_closure is the root nearest to the measurement
+holdup_vs_closure           d_H = (H_meas - H_closure) / sqrt(sd_H^2 + model_holdup_sd^2) lies
+                            beyond c AND beyond k robust sd of d_H over the rows of the same
+                            predicted pattern (so a closure that is biased in one regime does
+                            not flag the whole regime); for stratified rows H_closure is the
+                            root nearest to the measurement
 holdup_above_stratified     labelled stratified and the holdup lies more than c combined sd
                             above the thickest stratified root of the closure
-pgrad_vs_closure            |pgrad_meas - pgrad_closure| > c sqrt(sd_p^2 + (model_pgrad_rel
-                            pgrad_closure)^2 + model_pgrad_abs^2)
+pgrad_vs_closure            likewise for d_p = (pgrad_meas - pgrad_closure) / sqrt(sd_p^2 +
+                            (model_pgrad_rel pgrad_closure)^2 + model_pgrad_abs^2)
 pgrad_sign                  measured and predicted pgrad have opposite signs, each beyond c of
                             its own uncertainty (typical of an inclination or pgrad sign slip in
                             gravity-dominated downward flow)
-pattern_kh                  labelled stratified, but at the closure's stratified equilibrium
-                            u_G / u_G,KH > 1 + ``kh_margin`` (Taitel & Dukler 1976 criterion)
+pattern_kh                  labelled stratified, but u_G / u_G,KH > 1 + ``kh_margin`` (Taitel &
+                            Dukler 1976 criterion) at the measured level, or at the closure's
+                            stratified equilibrium where no holdup was measured
 pgrad_below_head            pgrad_meas + c sd_p is below the hydrostatic head of the lightest
                             mixture the holdup allows, (rho_L H + rho_G (1-H)) g sin(theta) with
                             H at the end of its +-c sd range (0 or 1 when not measured): the wall
@@ -242,6 +246,14 @@ def audit_dataset(df: pd.DataFrame, closure, settings: AuditSettings | None = No
     z_H = (H - H_pred) / sig_H
     z_P = (P - P_pred) / sig_P
     c = st.k_sigma
+    # robust scores of the prediction misfit within each predicted pattern
+    rz_H, rz_P = torch.full_like(z_H, float("nan")), torch.full_like(z_P, float("nan"))
+    for code in torch.unique(pred.pattern):
+        m = pred.pattern == code
+        for zz, out in ((z_H, rz_H), (z_P, rz_P)):
+            r, _, _ = robust_z(torch.where(m, zz, float("nan")), st.residual_sd_floor)
+            out.copy_(torch.where(m, r, out))
+    kh_used = torch.where(torch.isfinite(res.kh_ratio), res.kh_ratio, kh_eq)
     lab_strat = torch.as_tensor(np.isin(observed, STRATIFIED_PATTERNS))
     sin_t = torch.sin(cond.theta)
     lam = cond.vsl / cond.vm.clamp_min(1e-300)
@@ -263,17 +275,18 @@ def audit_dataset(df: pd.DataFrame, closure, settings: AuditSettings | None = No
     checks["holdup_above_stratified"] = (above, [
         f"labelled stratified, holdup {_fmt(a)} above the thickest stratified root's {_fmt(b)}"
         for a, b in zip(H.tolist(), H_thick.tolist())])
-    checks["holdup_vs_closure"] = ((z_H.abs() > c) & ~above, [
+    checks["holdup_vs_closure"] = ((z_H.abs() > c) & (rz_H.abs() > st.k_robust) & ~above, [
         f"holdup {_fmt(a)} vs closure {_fmt(b)} ({_fmt(zz)} sd)" for a, b, zz in zip(H.tolist(), H_pred.tolist(), z_H.tolist())])
-    checks["pgrad_vs_closure"] = (z_P.abs() > c, [
+    checks["pgrad_vs_closure"] = ((z_P.abs() > c) & (rz_P.abs() > st.k_robust), [
         f"pgrad {_fmt(a)} Pa/m vs closure {_fmt(b)} Pa/m ({_fmt(zz)} sd)"
         for a, b, zz in zip(P.tolist(), P_pred.tolist(), z_P.tolist())])
     opposite = (torch.sign(P) * torch.sign(P_pred) < 0) & (P.abs() > c * sdP) & (P_pred.abs() > c * (sig_P**2 - sdP**2).sqrt())
     checks["pgrad_sign"] = (opposite, [
         f"pgrad {_fmt(a)} Pa/m has the opposite sign of the closure's {_fmt(b)} Pa/m (inclination {_fmt(t)} deg)"
         for a, b, t in zip(P.tolist(), P_pred.tolist(), torch.rad2deg(cond.theta).tolist())])
-    checks["pattern_kh"] = (lab_strat & (kh_eq > 1 + st.kh_margin), [
-        f"labelled stratified but u_G/u_G,KH = {_fmt(k)} at the closure's equilibrium" for k in kh_eq.tolist()])
+    checks["pattern_kh"] = (lab_strat & (kh_used > 1 + st.kh_margin), [
+        f"labelled stratified but u_G/u_G,KH = {_fmt(k)} at the {'measured level' if m else 'closure equilibrium'}"
+        for k, m in zip(kh_used.tolist(), torch.isfinite(res.kh_ratio).tolist())])
     checks["pgrad_below_head"] = (P + c * sdP < head_min, [
         f"pgrad {_fmt(a)} Pa/m below the lightest hydrostatic head {_fmt(b)} Pa/m" for a, b in
         zip(P.tolist(), head_min.tolist())])
@@ -305,7 +318,7 @@ def audit_dataset(df: pd.DataFrame, closure, settings: AuditSettings | None = No
         **{f"e_{r}": res.standardised(r).numpy() for r in RESIDUALS}, "e_joint": e_joint.numpy(),
         **{f"z_{r}": z[r].numpy() for r in SCORES},
         "holdup_pred": H_pred.numpy(), "pgrad_pred": P_pred.numpy(),
-        "z_holdup": z_H.numpy(), "z_pgrad": z_P.numpy(), "kh_ratio_eq": kh_eq.numpy(), "in_domain": in_dom,
+        "z_holdup": z_H.numpy(), "z_pgrad": z_P.numpy(), "kh_ratio_eq": kh_eq.numpy(), "kh_ratio_meas": res.kh_ratio.numpy(), "in_domain": in_dom,
         "suspect": flags.any(axis=1), "checks": codes, "reasons": reasons,
     })
     counts = {k: int(flags[:, j].sum()) for j, k in enumerate(names)}
