@@ -127,9 +127,12 @@ def _fit_one(cfg: DictConfig, train_df: pd.DataFrame, val_t: dict, replay_t: dic
 
     dm = TableDataModule(train_t, val_t, batch_size=t.batch_size, seed=seed)
     ckpt = ModelCheckpoint(dirpath=out_dir / "checkpoints", filename="best-{epoch:03d}", monitor=t.monitor,
-                           mode="min", save_top_k=1, save_last=True)
+                           mode="min", save_top_k=1)
+    # last.ckpt after EVERY epoch (save_last=True would only refresh it when the best improves)
+    latest = ModelCheckpoint(dirpath=out_dir / "checkpoints", filename="last", monitor=None, save_top_k=1,
+                             enable_version_counter=False)
     timer = EpochTimer()
-    cbs = [ckpt, timer, *callbacks]
+    cbs = [ckpt, latest, timer, *callbacks]
     if t.patience:
         cbs.append(EarlyStopping(monitor=t.monitor, mode="min", patience=int(t.patience), min_delta=float(t.min_delta)))
     trainer = L.Trainer(
