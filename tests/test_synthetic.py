@@ -215,3 +215,6 @@ def test_synth_command_does_not_import_lightning(tmp_path):
             f"rc = main(['synth', 'n=20', '--quiet', '--out', {str(tmp_path)!r}]); "
             "assert rc == 0; assert not any(m.split('.')[0] in ('lightning', 'pytorch_lightning') for m in sys.modules)")
     subprocess.run([sys.executable, "-c", code], check=True, capture_output=True)
+    (run,) = list(tmp_path.iterdir())  # default table_format: Parquet, read back exactly
+    table = read_table(run / "synthetic.parquet")
+    assert len(table) == 20 and (table["campaign"] == "demo_loop").all() and table["holdup"].notna().all()
