@@ -18,6 +18,7 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "check-data": ("closure_nn.commands.check_data", "validate a measurement table and convert it to SI"),
     "synth": ("closure_nn.commands.synth", "sample a design space and write a synthetic training table"),
     "train": ("closure_nn.commands.train", "pre-train, fine-tune or update a neural closure"),
+    "evaluate": ("closure_nn.commands.evaluate", "compare baseline, learned closure and a black-box regressor on held-out rows"),
     "audit": ("closure_nn.commands.audit", "consistency audit of a dataset and a closure"),
     "map": ("closure_nn.commands.map", "draw a flow-pattern map, baseline vs learned"),
     "line": ("closure_nn.commands.line", "march along a line profile: pressure, holdup, pattern, inventory"),
