@@ -91,7 +91,11 @@ class NeuralClosure(Closure):
         Holdup and pressure-gradient data give two balance equations per state for three
         factors, so learning all three leaves one direction fixed only by the model structure,
         the prior and the smoothness penalty; learning ``['f_i']`` on a trusted wall
-        correlation is fully determined by the data.
+        correlation is fully determined by the data. Our default learns all three and makes the
+        split physical in the loss: the wall factors are anchored to the baseline wall
+        correlation about 100 times more strongly than f_i (``prior_factors`` of
+        :class:`closure_nn.training.loss.LossSettings`); a wall-friction error of the baseline
+        therefore shows up partly as a compensating f_i, not as a learned wall factor.
 
     >>> from closure_nn.physics.conditions import make_conditions
     >>> from closure_nn.physics.local_state import local_state

@@ -37,11 +37,23 @@ Terms (each a weighted mean over the rows it applies to; weights in ``conf/loss/
     annular or dispersed bubble but predicted stable: :math:`\max(\delta - m, 0)^2`, with the
     margin :math:`\delta` = ``pattern_margin``.
 ``prior``
-    :math:`\sum_k (\ln f_k - \ln f_{k,\mathrm{base}})^2` at the measured (or, without holdup,
-    solved) states: pulls the closure toward the mechanistic baseline where data are silent.
+    :math:`\sum_k \lambda_k (\ln f_k - \ln f_{k,\mathrm{base}})^2` at the measured (or, without
+    holdup, solved) states: pulls the closure toward the mechanistic baseline where data are
+    silent. The per-factor weights :math:`\lambda_k` (``prior_factors``, default
+    ``{f_wl: 1, f_wg: 1, f_i: 0.01}``) make the split between the factors physical (below).
 ``smooth``
     :math:`\sum_k \lVert \partial g_k / \partial z \rVert^2`, g the network's part of ln f and z
     the standardised features, at the same states.
+
+Identifiability. Holdup and pgrad at one state give two equations (the two phase balances) for
+three unknown factors f_WL, f_WG, f_i: the data fix two combinations and leave one direction
+free. Learning all three, we close that direction with physics rather than with the network's
+whim: the wall factors are anchored to the baseline wall correlation (single-phase-like wall
+friction on the phase hydraulic diameter, with the wall roughness of the data where the baseline
+is Churchill 1977) a hundred times more strongly than the interfacial factor, so the data move
+mainly f_i, the least certain closure of the two-fluid model. Whatever the data say about the
+walls beyond that anchor is unidentifiable from holdup and pgrad alone; the evaluation report
+states this limit.
 
 Uncertainties: ``holdup_sd`` where given, else ``default_holdup_sd``; ``pgrad_sd`` where given,
 else ``pgrad_rel_sd * |pgrad| + pgrad_sd_floor``. Row weights multiply every term.
@@ -53,7 +65,7 @@ from dataclasses import dataclass, field
 import torch
 from torch import nn
 
-from ..closures.neural import NeuralClosure
+from ..closures.neural import OUTPUT_NAMES, NeuralClosure
 from ..data.features import KIND_CODE, KINDS, frac_from_holdup
 from ..physics.conditions import FIELD_NAMES, Conditions
 from ..physics.geometry import STRATIFIED
@@ -66,6 +78,8 @@ from ..physics.vocabulary import CODE, DISPERSED_BUBBLE, INTERMITTENT, STRATIFIE
 from ..physics.vocabulary import ANNULAR as ANNULAR_PATTERN
 
 TERMS = ("phase_residual", "combined_residual", "data_holdup", "data_pgrad", "pattern", "prior", "smooth")
+#: default per-factor prior weights (see "Identifiability" in the module docstring)
+PRIOR_FACTORS = {"f_wl": 1.0, "f_wg": 1.0, "f_i": 0.01}
 _STRAT_CODES = tuple(CODE[p] for p in STRATIFIED_PATTERNS)
 _UNSTABLE_CODES = (CODE[INTERMITTENT], CODE[ANNULAR_PATTERN], CODE[DISPERSED_BUBBLE])
 
@@ -76,7 +90,9 @@ class LossSettings:
 
     weights: dict = field(default_factory=lambda: {"phase_residual": 1.0, "combined_residual": 1.0,
                                                    "data_holdup": 1.0, "data_pgrad": 1.0, "pattern": 1.0,
-                                                   "prior": 1e-2, "smooth": 1e-3})
+                                                   "prior": 1.0, "smooth": 1e-3})
+    #: per-factor weights lambda_k of the prior term (walls anchored, interface free to move)
+    prior_factors: dict = field(default_factory=lambda: dict(PRIOR_FACTORS))
     default_holdup_sd: float = 0.02  # [-]
     pgrad_rel_sd: float = 0.05  # [-]
     pgrad_sd_floor: float = 1.0  # [Pa/m]
@@ -89,6 +105,16 @@ class LossSettings:
         if unknown:
             raise ValueError(f"unknown loss term(s) {', '.join(sorted(unknown))}; known: {', '.join(TERMS)}")
         self.weights = {k: float(self.weights.get(k, 0.0)) for k in TERMS}
+        bad = set(self.prior_factors) - set(OUTPUT_NAMES)
+        if bad:
+            raise ValueError(f"prior_factors: unknown factor(s) {', '.join(sorted(bad))}; known: {', '.join(OUTPUT_NAMES)}")
+        self.prior_factors = {k: float(self.prior_factors.get(k, PRIOR_FACTORS[k])) for k in OUTPUT_NAMES}
+        if any(v < 0 for v in self.prior_factors.values()):
+            raise ValueError(f"prior_factors must be >= 0, got {self.prior_factors}")
+
+    def prior_vector(self) -> torch.Tensor:
+        """``(3,)`` float64 weights lambda_k in the order f_wl, f_wg, f_i."""
+        return torch.tensor([self.prior_factors[k] for k in OUTPUT_NAMES], dtype=torch.float64)
 
 
 def batch_conditions(batch: dict[str, torch.Tensor], rows: torch.Tensor | None = None) -> Conditions:
@@ -202,10 +228,11 @@ class ClosureLoss(nn.Module):
         if cfg.weights["pattern"] > 0:
             no_root += self._pattern(closure, batch, has_h | has_p, acc)
         # --- (5): prior toward the baseline and smoothness, at the collected states
+        lam = cfg.prior_vector()
         for s, w in reg_states:
             if cfg.weights["prior"] > 0:
                 dlog = closure.log_friction(s) - torch.log(torch.stack(tuple(closure.baseline(s)), dim=-1))
-                acc.add("prior", (dlog**2).sum(dim=-1), w)
+                acc.add("prior", (lam * dlog**2).sum(dim=-1), w)
             if cfg.weights["smooth"] > 0 and torch.is_grad_enabled():
                 acc.add("smooth", smoothness(closure, s), w)
         terms = {k: acc.mean(k) for k in TERMS}
