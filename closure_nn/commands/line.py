@@ -1,0 +1,106 @@
+"""``closure-nn line``: march a line profile with closures side by side, write a run folder.
+
+Examples::
+
+    closure-nn line                                   # the invented demo line, baseline closure
+    closure-nn line my_line.yaml --closure learned=runs/train-x/bundle --ensemble runs/ens-y
+    closure-nn line line=karvel_ridge march.tol=20    # Hydra overrides of conf/line.yaml
+"""
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+from ..caution import CAUTION
+from ..config import load_config
+from ..physics.checks import InputError
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("line_file", nargs="?", default=None, metavar="LINE.yaml",
+                   help="line definition (profile CSV + fluids, rates, one pressure); default: the config's line")
+    p.add_argument("--closure", action="append", default=[], metavar="[NAME=]SPEC",
+                   help="another closure side by side: a bundle or ensemble directory, or 'baseline' (repeatable)")
+    p.add_argument("--ensemble", nargs="+", default=[], metavar="DIR",
+                   help="ensemble or bundle directories; every member is marched for the uncertainty band")
+    p.add_argument("--no-plot", action="store_true", help="skip the PNG")
+    p.add_argument("--out", default=None, help="run folder root (default: run_root of the config)")
+
+
+def _closure_from_spec(spec: str, cfg):
+    from ..closures.registry import build_closure
+
+    if spec == "baseline":
+        return build_closure({"kind": "baseline"}) if cfg.closure.get("kind") != "baseline" else build_closure(cfg.closure)
+    return build_closure({"kind": "bundle", "path": spec})
+
+
+def _members(path: str) -> list:
+    from ..closures.registry import build_closure
+
+    c = build_closure({"kind": "bundle", "path": path})
+    return list(c.members) if hasattr(c, "members") else [c]
+
+
+def run(args: argparse.Namespace, overrides: list[str]) -> int:
+    import torch
+    from omegaconf import OmegaConf
+
+    from ..closures.registry import build_closure
+    from ..line.definition import line_from_config
+    from ..line.march import MarchSettings
+    from ..line.run import run_line, write_line_run
+    from ..run_folder import make_run_dir
+
+    line_over = [o for o in overrides if o.startswith("line.")]
+    cfg = load_config("line", [o for o in overrides if not o.startswith("line.")] if args.line_file else overrides)
+    base_dir = None
+    if args.line_file:
+        path = Path(args.line_file)
+        if not path.exists():
+            raise FileNotFoundError(2, "no such line file", str(path))
+        user = OmegaConf.load(path)
+        if line_over:
+            user = OmegaConf.merge(user, OmegaConf.from_dotlist([o[len("line."):] for o in line_over]))
+        cfg.line = user
+        base_dir = path.parent
+    line = line_from_config(cfg.line, base_dir=base_dir, where=str(args.line_file or "conf line"))
+    closures = {str(cfg.closure.get("kind", "closure")) if cfg.closure.get("kind") == "baseline"
+                else Path(str(cfg.closure.path)).name: build_closure(cfg.closure)}
+    for name, ccfg in (cfg.get("compare") or {}).items():
+        closures[str(name)] = build_closure(ccfg)
+    for item in args.closure:
+        name, _, spec = item.rpartition("=")
+        name = name or Path(spec).name or spec
+        if name in closures:
+            raise InputError(f"--closure {item!r}: the name {name!r} is already used; write NAME=SPEC")
+        closures[name] = _closure_from_spec(spec, cfg)
+    members = []
+    for d in list(cfg.get("ensemble") or []) + list(args.ensemble):
+        members += _members(str(d))
+    try:
+        settings = MarchSettings(**OmegaConf.to_container(cfg.march))
+    except TypeError as exc:
+        raise InputError(f"march: {exc}") from None
+    torch.set_num_threads(max(1, min(torch.get_num_threads(), 2)))
+    result = run_line(line, closures, members, solver=dict(cfg.solver), settings=settings)
+    run_dir = make_run_dir("line", args.out or cfg.run_root)
+    files = write_line_run(result, run_dir, config_yaml=OmegaConf.to_yaml(cfg), plot=cfg.plot and not args.no_plot)
+    summ = result.summary()
+    print(f"line {line.name}{' (invented)' if line.invented else ''}: {summ['length_m'] / 1e3:.2f} km, "
+          f"{line.boundary} pressure {line.p_boundary / 1e5:.3f} bar given")
+    for name, s in summ["closures"].items():
+        ood = s["out_of_domain"]
+        ood_txt = f", outside training domain at {ood['stations']} stations" if ood.get("checked") and ood["stations"] else ""
+        print(f"  {name:<14} inlet {s['p_inlet_bar']:8.3f} bar  outlet {s['p_outlet_bar']:8.3f} bar  "
+              f"dp {s['dp_total_Pa'] / 1e5:7.3f} bar (friction {s['dp_friction_Pa'] / 1e5:.3f}, gravity "
+              f"{s['dp_gravity_Pa'] / 1e5:.3f})  liquid {s['liquid_inventory_m3']:8.1f} m3{ood_txt}")
+    if "ensemble" in summ:
+        e = summ["ensemble"]
+        print(f"  ensemble of {e['members']}: inlet {e['p_inlet_Pa']['min'] / 1e5:.3f}-{e['p_inlet_Pa']['max'] / 1e5:.3f} bar, "
+              f"liquid {e['liquid_inventory_m3']['min']:.1f}-{e['liquid_inventory_m3']['max']:.1f} m3")
+    for name, msg in summ.get("failures", {}).items():
+        print(f"  {name}: FAILED - {msg}")
+    print(f"results: {run_dir} ({', '.join(p.name for p in files.values())})")
+    print(CAUTION)
+    return 0 if not result.failures else 1

@@ -1,0 +1,373 @@
+r"""A line definition: an elevation profile (CSV) plus fluids, temperature, rates and one pressure.
+
+File format (our own)
+---------------------
+**Profile CSV** - one row per station, in flow order (inlet first). Headers are canonical names,
+optionally with a field unit in square brackets (:mod:`closure_nn.data.units`); a bare name
+means SI.
+
+==============  =======  ========  ============================================================
+column          SI unit  required  meaning
+==============  =======  ========  ============================================================
+``distance``    m        yes       distance along the pipe axis from the inlet, strictly rising
+                                   (``[km]`` allowed)
+``elevation``   m        yes       elevation of the pipe axis (any datum)
+``D``           m        no        inner diameter of the segment that STARTS at this row
+``roughness``   m        no        wall roughness of the segment that starts at this row
+``section``     -        no        name of a section of the YAML ``sections`` table (gives D,
+                                   roughness of the segment that starts at this row)
+``T``           K        no        fluid temperature at the station (``[degC]`` allowed)
+==============  =======  ========  ============================================================
+
+Values on the last row for segment-wise columns (D, roughness, section) are not used.
+Each segment between two stations is straight: inclination
+:math:`\theta = \arcsin(\Delta z / \Delta s)`, positive upward, so |elevation step| must not
+exceed the distance step.
+
+**Line YAML** (``conf/line/*.yaml``, Hydra-composable, or any file given to ``closure-nn line``).
+Numbers are SI; a string ``"<number> <unit>"`` gives a field unit (``"45 bara"``, ``"60 degC"``,
+``"254 mm"``). Keys::
+
+    name: Karvel Ridge tie-back      # free text
+    invented: true                   # demo data must say so
+    description: ...                 # free text, copied into the summary
+    profile: path/to/profile.csv     # relative to this file, the working directory or the repo
+    D: 0.254                         # m, where the profile has no D / section column
+    roughness: 4.5e-5                # m, likewise
+    sections: {}                     # optional: name -> {D: ..., roughness: ...}
+    fluid:
+      rhol: 760.0                    # liquid density [kg/m3], constant along the line
+      mul: 6.0e-4                    # liquid viscosity [Pa s]
+      sigma: 0.02                    # surface tension [N/m]
+      M_g: 0.0195                    # gas molar mass [kg/mol] (from CoolProp if coolprop given)
+      Z: 0.9                         # compressibility [-], constant; or null with coolprop
+      coolprop: null                 # CoolProp fluid name (e.g. Methane): Z(p, T) [and mug]
+      mug: 1.3e-5                    # gas viscosity [Pa s]; null with coolprop -> CoolProp
+      rhog: null                     # fixed gas density [kg/m3] (no equation of state; checks)
+    temperature: {inlet: 60 degC, outlet: 15 degC}   # linear in distance; omit if profile has T
+    rates: {gas: 2.5e6 Sm3/d, liquid: 600 m3/d}     # or kg/s, kg/h, t/d, MSm3/d, m3/h, bbl/d
+    pressure: {outlet: 42 bara}      # exactly one of inlet / outlet, absolute
+
+Standard conditions of gas volume rates: 15 degC and 1.01325 bar (ISO 13443 reference
+conditions, common practice); liquid volume rates use the constant liquid density.
+"""
+from __future__ import annotations
+
+import math
+import re
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from ..data.units import parse_header, to_si
+from ..physics.checks import InputError, check_range
+
+#: profile column -> (dimension in closure_nn.data.units, required)
+PROFILE_COLUMNS: dict[str, tuple[str, bool]] = {
+    "distance": ("length", True), "elevation": ("length", True), "D": ("length", False),
+    "roughness": ("length", False), "section": ("none", False), "T": ("temperature", False),
+}
+#: standard reference conditions of gas volume rates: 15 degC, 1.01325 bar (ISO 13443)
+T_STD = 288.15  # K
+P_STD = 101325.0  # Pa
+_DAY = 86400.0  # s
+_BBL = 0.158987294928  # m3 per US oil barrel (exact; NIST SP 811 Appendix B.8)
+#: rate unit -> (kind, factor to kg/s for 'mass' or to standard m3/s for 'volume')
+RATE_UNITS: dict[str, tuple[str, float]] = {
+    "kg/s": ("mass", 1.0), "kg/h": ("mass", 1 / 3600), "kg/d": ("mass", 1 / _DAY), "t/d": ("mass", 1000 / _DAY),
+    "t/h": ("mass", 1000 / 3600), "Sm3/d": ("volume", 1 / _DAY), "Sm3/h": ("volume", 1 / 3600),
+    "MSm3/d": ("volume", 1e6 / _DAY), "m3/d": ("volume", 1 / _DAY), "m3/h": ("volume", 1 / 3600),
+    "bbl/d": ("volume", _BBL / _DAY),
+}
+_NUM_UNIT = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*(.*?)\s*$")
+# extra ranges for line inputs (SI): name -> (lo, hi, unit)
+_RANGES = {"T": (150.0, 600.0, "K"), "p": (1.0e4, 1.0e8, "Pa"), "M_g": (0.002, 0.2, "kg/mol"), "Z": (0.2, 2.0, "-")}
+
+
+@dataclass(frozen=True)
+class FluidSpec:
+    """Fluid properties of a line (SI). ``Z`` or ``coolprop`` gives the gas equation of state."""
+
+    rhol: float
+    mul: float
+    sigma: float
+    M_g: float | None = None
+    Z: float | None = 1.0
+    coolprop: str | None = None
+    mug: float | None = None
+    rhog: float | None = None  # fixed gas density (no equation of state)
+
+
+@dataclass(frozen=True)
+class LineDefinition:
+    """A line in SI: stations ``(N+1,)``, segments ``(N,)``, fluids, rates and one pressure."""
+
+    name: str
+    distance: np.ndarray  # (N+1,) m along the pipe
+    elevation: np.ndarray  # (N+1,) m
+    D: np.ndarray  # (N,) m, segment-wise
+    roughness: np.ndarray  # (N,) m, segment-wise
+    T: np.ndarray  # (N+1,) K at the stations
+    fluid: FluidSpec
+    m_gas: float  # kg/s
+    m_liquid: float  # kg/s
+    boundary: str  # 'inlet' | 'outlet'
+    p_boundary: float  # Pa absolute
+    section: np.ndarray | None = None  # (N,) section names
+    invented: bool = False
+    description: str = ""
+    source: dict = field(default_factory=dict)
+
+    @property
+    def length(self) -> np.ndarray:
+        """Segment lengths along the pipe (N,) [m]."""
+        return np.diff(self.distance)
+
+    @property
+    def sin_theta(self) -> np.ndarray:
+        """Segment inclinations sin(theta) = dz/ds (N,) [-], positive upward."""
+        return np.diff(self.elevation) / self.length
+
+    @property
+    def n_segments(self) -> int:
+        return len(self.distance) - 1
+
+
+def parse_quantity(value, dimension: str, key: str, where: str = "") -> float:
+    """A YAML number (SI) or ``"<number> <unit>"`` string -> float in SI.
+
+    >>> parse_quantity("45 bara", "pressure", "pressure.outlet"), parse_quantity(0.25, "length", "D")
+    (4500000.0, 0.25)
+    """
+    if isinstance(value, bool) or value is None:
+        raise InputError(f"{where}: {key} = {value!r}; expected a number (SI) or '<number> <unit>'")
+    if isinstance(value, (int, float)):
+        return float(value)
+    m = _NUM_UNIT.match(str(value))
+    if m is None:
+        raise InputError(f"{where}: {key} = {value!r}; expected a number (SI) or '<number> <unit>'")
+    x, unit = float(m.group(1)), m.group(2)
+    return float(to_si(x, unit, dimension, key, where)) if unit else x
+
+
+def parse_rate(value, phase: str, rho_std: float, where: str = "") -> float:
+    """A rate ``"<number> <unit>"`` (units of :data:`RATE_UNITS`; bare number = kg/s) -> kg/s.
+
+    ``rho_std`` [kg/m3] converts volume rates: gas standard density, or the liquid density.
+
+    >>> round(parse_rate("864 m3/d", "liquid", 800.0), 6)
+    8.0
+    """
+    if isinstance(value, (int, float)) and not isinstance(value, bool):
+        m_dot = float(value)
+    else:
+        m = _NUM_UNIT.match(str(value))
+        unit = m.group(2) if m else None
+        if m is None or unit not in RATE_UNITS:
+            raise InputError(f"{where}: rates.{phase} = {value!r}; expected '<number> <unit>' with a unit of "
+                             f"{', '.join(RATE_UNITS)} (a bare number is kg/s)")
+        kind, a = RATE_UNITS[unit]
+        m_dot = float(m.group(1)) * a * (rho_std if kind == "volume" else 1.0)
+    if not (math.isfinite(m_dot) and m_dot >= 0):
+        raise InputError(f"{where}: rates.{phase} = {value!r} gives {m_dot:g} kg/s; rates must be >= 0")
+    return m_dot
+
+
+def read_profile(path: str | Path) -> dict[str, np.ndarray]:
+    """Read and check a profile CSV (columns in the module docstring) -> SI arrays by name."""
+    import pandas as pd
+
+    path = Path(path)
+    try:
+        df = pd.read_csv(path, comment="#", skipinitialspace=True)
+    except FileNotFoundError:
+        raise
+    except Exception as exc:  # pandas raises several parser errors
+        raise InputError(f"{path}: cannot read the profile as CSV ({str(exc).splitlines()[0]})") from None
+    out: dict[str, np.ndarray] = {}
+    for header in df.columns:
+        name, unit = parse_header(header)
+        if name not in PROFILE_COLUMNS:
+            raise InputError(f"{path}: unknown profile column {header!r}; known: {', '.join(PROFILE_COLUMNS)}")
+        dim, _ = PROFILE_COLUMNS[name]
+        if name == "section":
+            out[name] = df[header].astype(str).str.strip().to_numpy(dtype=object)
+            continue
+        if unit == "km" and dim == "length":
+            vals = pd.to_numeric(df[header], errors="coerce").to_numpy(dtype=np.float64) * 1000.0
+        else:
+            vals = pd.to_numeric(df[header], errors="coerce").to_numpy(dtype=np.float64)
+            vals = to_si(vals, unit, dim, header, str(path)) if unit else vals
+        bad = ~np.isfinite(vals)
+        if name in ("D", "roughness"):
+            bad[-1] = False  # last row unused for segment-wise columns
+        if bad.any():
+            i = int(np.flatnonzero(bad)[0])
+            raise InputError(f"{path}: data row {i + 1}, column {header!r}: {df[header].iloc[i]!r} is not a number")
+        out[name] = vals
+    for name, (_, required) in PROFILE_COLUMNS.items():
+        if required and name not in out:
+            raise InputError(f"{path}: the profile needs a column {name!r} [m]")
+    s, z = out["distance"], out["elevation"]
+    if len(s) < 2:
+        raise InputError(f"{path}: a profile needs at least two stations, found {len(s)}")
+    ds, dz = np.diff(s), np.diff(z)
+    if (ds <= 0).any():
+        i = int(np.flatnonzero(ds <= 0)[0])
+        raise InputError(f"{path}: data row {i + 2}: distance {s[i + 1]:g} m does not rise above the previous "
+                         f"row ({s[i]:g} m); stations must be in flow order, strictly rising")
+    steep = np.abs(dz) > ds * (1 + 1e-12)
+    if steep.any():
+        i = int(np.flatnonzero(steep)[0])
+        raise InputError(f"{path}: data rows {i + 1}-{i + 2}: elevation changes by {dz[i]:g} m over {ds[i]:g} m "
+                         "of pipe; distance is measured along the pipe, so |elevation step| <= distance step")
+    return out
+
+
+def _resolve(path: str, base_dir: Path | None) -> Path:
+    p = Path(path)
+    if p.is_absolute():
+        return p
+    from ..config import CONF_DIR
+
+    for root in ([base_dir] if base_dir else []) + [Path.cwd(), CONF_DIR.parent]:
+        if (root / p).exists():
+            return root / p
+    return p
+
+
+def _segmentwise(prof: dict, cfg: Mapping, name: str, n: int, where: str) -> np.ndarray:
+    """D or roughness per segment: profile column, else section table, else the YAML scalar."""
+    if name in prof:
+        if "section" in prof:
+            raise InputError(f"{where}: the profile gives both a {name!r} and a 'section' column; use one")
+        vals = prof[name][:-1]
+    elif "section" in prof:
+        table = cfg.get("sections") or {}
+        vals = np.empty(n)
+        for i, sec in enumerate(prof["section"][:-1]):
+            if sec not in table:
+                raise InputError(f"{where}: profile data row {i + 1}: section {sec!r} is not in the 'sections' "
+                                 f"table (known: {', '.join(map(str, table)) or 'none'})")
+            entry = table[sec]
+            if name not in entry and cfg.get(name) is None:
+                raise InputError(f"{where}: sections.{sec} has no {name!r} and there is no line-wide {name!r}")
+            vals[i] = parse_quantity(entry.get(name, cfg.get(name)), "length", f"sections.{sec}.{name}", where)
+    else:
+        if cfg.get(name) is None:
+            raise InputError(f"{where}: give {name!r} [m] in the YAML or as a profile column")
+        vals = np.full(n, parse_quantity(cfg[name], "length", name, where))
+    check_range(name, vals, where)
+    return np.asarray(vals, dtype=np.float64)
+
+
+def _fluid(cfg: Mapping, where: str) -> FluidSpec:
+    f = cfg.get("fluid")
+    if not f:
+        raise InputError(f"{where}: the line needs a 'fluid' table (rhol, mul, sigma, M_g, Z, mug)")
+    q = {}
+    for key, dim in (("rhol", "density"), ("mul", "dynamic viscosity"), ("sigma", "surface tension")):
+        if f.get(key) is None:
+            raise InputError(f"{where}: fluid.{key} is missing")
+        q[key] = parse_quantity(f[key], dim, f"fluid.{key}", where)
+        check_range(key, [q[key]], f"{where}, fluid")
+    opt = {}
+    for key, dim in (("M_g", "molar mass"), ("Z", "dimensionless"), ("mug", "dynamic viscosity"), ("rhog", "density")):
+        opt[key] = None if f.get(key) is None else parse_quantity(f[key], dim, f"fluid.{key}", where)
+    cp = f.get("coolprop")
+    if opt["rhog"] is None and cp is None:
+        for key in ("M_g", "Z"):
+            if opt[key] is None:
+                raise InputError(f"{where}: fluid.{key} is missing (or give fluid.coolprop, or a fixed fluid.rhog)")
+            lo, hi, unit = _RANGES[key]
+            if not lo <= opt[key] <= hi:
+                raise InputError(f"{where}: fluid.{key} = {opt[key]:g} {unit} is outside [{lo:g}, {hi:g}] {unit}")
+    if opt["mug"] is None and cp is None:
+        raise InputError(f"{where}: fluid.mug is missing (or give fluid.coolprop for CoolProp viscosities)")
+    if opt["mug"] is not None:
+        check_range("mug", [opt["mug"]], f"{where}, fluid")
+    if opt["rhog"] is not None:
+        check_range("rhog", [opt["rhog"]], f"{where}, fluid")
+    return FluidSpec(**q, M_g=opt["M_g"], Z=opt["Z"], coolprop=None if cp is None else str(cp), mug=opt["mug"],
+                     rhog=opt["rhog"])
+
+
+def _temperature(prof: dict, cfg: Mapping, where: str) -> np.ndarray:
+    t = cfg.get("temperature")
+    s = prof["distance"]
+    if "T" in prof:
+        if t:
+            raise InputError(f"{where}: the profile has a 'T' column and the YAML a 'temperature' table; give one")
+        T = prof["T"]
+    else:
+        if not t or t.get("inlet") is None:
+            raise InputError(f"{where}: give temperature: {{inlet: ..., outlet: ...}} or a 'T' profile column")
+        T_in = parse_quantity(t["inlet"], "temperature", "temperature.inlet", where)
+        T_out = parse_quantity(t.get("outlet", t["inlet"]), "temperature", "temperature.outlet", where)
+        T = T_in + (T_out - T_in) * (s - s[0]) / (s[-1] - s[0])
+    lo, hi, _ = _RANGES["T"]
+    if not ((T >= lo) & (T <= hi)).all():
+        raise InputError(f"{where}: temperature {float(T[(T < lo) | (T > hi)][0]):g} K is outside [{lo:g}, {hi:g}] K "
+                         "(a bare number is K; write '20 degC' for Celsius)")
+    return np.asarray(T, dtype=np.float64)
+
+
+def line_from_config(cfg: Mapping, base_dir: str | Path | None = None, where: str = "line") -> LineDefinition:
+    """Build a :class:`LineDefinition` from a parsed line YAML (dict or DictConfig).
+
+    ``base_dir`` is the directory of the YAML file, for a relative ``profile`` path.
+    """
+    from omegaconf import DictConfig, OmegaConf
+
+    if isinstance(cfg, DictConfig):
+        cfg = OmegaConf.to_container(cfg, resolve=True)
+    if not cfg.get("profile"):
+        raise InputError(f"{where}: 'profile' (path of the profile CSV) is missing")
+    prof_path = _resolve(str(cfg["profile"]), Path(base_dir) if base_dir else None)
+    prof = read_profile(prof_path)
+    n = len(prof["distance"]) - 1
+    fluid = _fluid(cfg, where)
+    T = _temperature(prof, cfg, where)
+    from .fluid import gas_standard_density  # here: it may need CoolProp
+
+    rates = cfg.get("rates") or {}
+    for ph in ("gas", "liquid"):
+        if rates.get(ph) is None:
+            raise InputError(f"{where}: rates.{ph} is missing (write 0 for a single-phase line)")
+    m_gas = parse_rate(rates["gas"], "gas", gas_standard_density(fluid), where)
+    m_liq = parse_rate(rates["liquid"], "liquid", fluid.rhol, where)
+    if m_gas == 0 and m_liq == 0:
+        raise InputError(f"{where}: both rates are zero; nothing flows")
+    pr = cfg.get("pressure") or {}
+    given = [k for k in ("inlet", "outlet") if pr.get(k) is not None]
+    if len(given) != 1 or set(pr) - {"inlet", "outlet"}:
+        raise InputError(f"{where}: 'pressure' needs exactly one of inlet / outlet (absolute), got {dict(pr)}")
+    p = parse_quantity(pr[given[0]], "pressure", f"pressure.{given[0]}", where)
+    lo, hi, _ = _RANGES["p"]
+    if not lo <= p <= hi:
+        raise InputError(f"{where}: pressure.{given[0]} = {p:g} Pa is outside [{lo:g}, {hi:g}] Pa (a bare number is Pa; "
+                         "write '45 bara')")
+    return LineDefinition(
+        name=str(cfg.get("name") or Path(prof_path).stem), distance=prof["distance"], elevation=prof["elevation"],
+        D=_segmentwise(prof, cfg, "D", n, where), roughness=_segmentwise(prof, cfg, "roughness", n, where), T=T,
+        fluid=fluid, m_gas=m_gas, m_liquid=m_liq, boundary=given[0], p_boundary=p,
+        section=prof["section"][:-1] if "section" in prof else None, invented=bool(cfg.get("invented", False)),
+        description=str(cfg.get("description") or ""), source={"profile": str(prof_path)},
+    )
+
+
+def load_line(path: str | Path) -> LineDefinition:
+    """Read a line YAML file (format in the module docstring)."""
+    import yaml
+
+    path = Path(path)
+    try:
+        cfg = yaml.safe_load(path.read_text())
+    except yaml.YAMLError as exc:
+        raise InputError(f"{path}: not valid YAML ({str(exc).splitlines()[0]})") from None
+    if not isinstance(cfg, dict):
+        raise InputError(f"{path}: expected a YAML mapping (name, profile, fluid, rates, pressure, ...)")
+    line = line_from_config(cfg, base_dir=path.parent, where=str(path))
+    return line

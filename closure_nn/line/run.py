@@ -1,0 +1,149 @@
+"""One line run: several named closures side by side, plus an optional ensemble band.
+
+:func:`run_line` marches the line once per closure (and once per ensemble member); each march
+batches all its stations into a few point solves (see :mod:`closure_nn.line.march`), so the
+cost per closure is a handful of large batched calls. :func:`write_line_run` writes the run
+folder: ``stations.csv``, ``band.csv`` (ensemble), ``summary.json``, ``line.png``, and the
+caution.
+
+Out-of-domain check: a closure with a method ``in_domain(features) -> bool mask`` is asked at
+every station, with ``features = closure_features(state)`` at the station's solved state
+(:meth:`closure_nn.line.local.LocalSolver.features`). Stations where it answers False are
+flagged in the table, the summary and the plot. Closures without the method are not checked.
+"""
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import torch
+
+from ..caution import CAUTION
+from ..physics.checks import check_conditions
+from .definition import LineDefinition
+from .fluid import GasModel
+from .local import LocalSolver, Mesh
+from .march import LineError, Marcher, MarchResult, MarchSettings
+from .results import ensemble_band, ensemble_summary, station_table, summarise
+
+
+@dataclass
+class LineRun:
+    """Results of one run: marches by closure name, ensemble members, failures, tables."""
+
+    line: LineDefinition
+    results: dict[str, MarchResult]
+    members: list[MarchResult]
+    in_domain: dict[str, np.ndarray]
+    failures: dict[str, str] = field(default_factory=dict)
+    gas: dict = field(default_factory=dict)
+
+    def stations(self):
+        """All marches in one long per-station table."""
+        import pandas as pd
+
+        frames = [station_table(r, name, "compare", self.in_domain.get(name)) for name, r in self.results.items()]
+        frames += [station_table(r, f"member_{i}", "member", self.in_domain.get(f"member_{i}"))
+                   for i, r in enumerate(self.members)]
+        return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame()
+
+    def band(self):
+        return ensemble_band(self.members)
+
+    def summary(self) -> dict:
+        ln = self.line
+        out = {
+            "line": ln.name, "invented": ln.invented, "description": ln.description, "source": ln.source,
+            "length_m": float(ln.distance[-1] - ln.distance[0]), "profile_stations": int(len(ln.distance)),
+            "boundary": {"at": ln.boundary, "p_Pa": ln.p_boundary}, "m_gas_kg_s": ln.m_gas,
+            "m_liquid_kg_s": ln.m_liquid, "fluid": {**ln.fluid.__dict__, **self.gas},
+            "closures": {name: summarise(r, self.in_domain.get(name)) for name, r in self.results.items()},
+        }
+        if self.members:
+            ms = [summarise(r, self.in_domain.get(f"member_{i}")) for i, r in enumerate(self.members)]
+            out["ensemble"] = ensemble_summary(ms)
+            out["ensemble"]["out_of_domain_stations"] = [m["out_of_domain"].get("stations") for m in ms]
+        if self.failures:
+            out["failures"] = self.failures
+        out["caution"] = CAUTION
+        return out
+
+
+def domain_mask(closure, features: np.ndarray | None) -> np.ndarray | None:
+    """``closure.in_domain`` at finite feature rows (rows with NaN features count as inside)."""
+    if features is None or not callable(getattr(closure, "in_domain", None)):
+        return None
+    x = torch.as_tensor(features, dtype=torch.float64)
+    finite = torch.isfinite(x).all(dim=-1)
+    mask = torch.ones(x.shape[0], dtype=torch.bool)
+    if bool(finite.any()):
+        with torch.no_grad():
+            mask[finite] = torch.as_tensor(closure.in_domain(x[finite])).to(torch.bool).reshape(-1)
+    return mask.numpy()
+
+
+def _check_inputs(line: LineDefinition, local: LocalSolver) -> None:
+    """Range checks of the conditions at the boundary pressure on every segment."""
+    mesh = Mesh.from_line(line)
+    seg = torch.arange(mesh.n)
+    cond = local.conditions(mesh, seg, torch.zeros(mesh.n, dtype=torch.float64),
+                            torch.full((mesh.n,), line.p_boundary, dtype=torch.float64))
+    check_conditions(cond, where=f"line {line.name!r} at the boundary pressure (rows are segments)")
+
+
+def run_line(line: LineDefinition, closures: Mapping[str, object], ensemble: Sequence[object] = (),
+             solver: Mapping | None = None, settings: MarchSettings | None = None,
+             raise_errors: bool = False) -> LineRun:
+    """March ``line`` with every closure of ``closures`` ({name: closure}) and every member of
+    ``ensemble``. A closure whose march fails is reported in ``failures`` (or raised when
+    ``raise_errors``)."""
+    settings = settings or MarchSettings()
+    gas = GasModel(line.fluid, (float(line.T.min()), float(line.T.max())))
+    local = LocalSolver(line, gas, dict(solver or {}))
+    _check_inputs(line, local)
+    results, members, dom, failures = {}, [], {}, {}
+    jobs = [(name, c, False) for name, c in closures.items()] + [(f"member_{i}", c, True) for i, c in enumerate(ensemble)]
+    for name, closure, is_member in jobs:
+        try:
+            r = Marcher(local, closure, settings, name).run(Mesh.from_line(line), line.p_boundary, line.boundary)
+        except LineError as exc:
+            if raise_errors:
+                raise
+            failures[name] = str(exc)
+            continue
+        (members.append(r) if is_member else results.__setitem__(name, r))
+        mask = domain_mask(closure, r.features)
+        if mask is not None:
+            dom[name] = mask
+    return LineRun(line=line, results=results, members=members, in_domain=dom, failures=failures, gas=gas.describe())
+
+
+def write_line_run(run: LineRun, run_dir: str | Path, config_yaml: str | None = None, plot: bool = True) -> dict[str, Path]:
+    """Write stations.csv, band.csv (if an ensemble ran), summary.json, line.png into ``run_dir``."""
+    from ..run_folder import write_json
+
+    d = Path(run_dir)
+    files = {}
+    st = run.stations()
+    files["stations"] = d / "stations.csv"
+    with open(files["stations"], "w") as fh:
+        fh.write(f"# {CAUTION}\n")
+        st.to_csv(fh, index=False)
+    band = run.band()
+    if band is not None:
+        files["band"] = d / "band.csv"
+        with open(files["band"], "w") as fh:
+            fh.write(f"# {CAUTION}\n")
+            band.to_csv(fh, index=False)
+    files["summary"] = write_json(d / "summary.json", run.summary())
+    if config_yaml is not None:
+        files["config"] = d / "config.yaml"
+        files["config"].write_text(config_yaml)
+    if plot and len(st):
+        from ..report.line_plots import plot_line
+
+        title = run.line.name + (" (invented line)" if run.line.invented else "")
+        files["plot"] = plot_line(st, band, d / "line.png", title=title)
+    return files
