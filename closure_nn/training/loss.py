@@ -10,7 +10,9 @@ measured / not given), the separated configuration ``kind`` (codes of
 Terms (each a weighted mean over the rows it applies to; weights in ``conf/loss/*.yaml``):
 
 ``phase_residual``
-    Rows with holdup AND pgrad measured, at the MEASURED state (h/D from the holdup). Both phase
+    Rows with holdup AND pgrad measured, at the MEASURED state (h/D from the holdup; only for
+    0 < H < 1 - a clipped reading of 0 or 1 is no separated state and would give unbounded
+    phase velocities). Both phase
     balances of :mod:`closure_nn.physics.momentum`, each divided by its phase area and by the
     pgrad uncertainty :math:`\sigma_p`:
 
@@ -20,6 +22,14 @@ Terms (each a weighted mean over the rows it applies to; weights in ``conf/loss/
     :math:`R_L/A_L` is the measured pgrad minus the pgrad that the liquid balance implies with
     the closure's stresses, so :math:`r_L` counts pgrad standard deviations (a stress scale
     :math:`A_L\sigma_p` per unit length).
+
+    With ``effective_variance`` the holdup uncertainty is propagated too (the effective-variance
+    method for errors in both variables, Orear 1982, Am. J. Phys. 50(10):912-916, citation from
+    memory): each phase
+    residual is divided by :math:`\sqrt{\sigma_p^2 + (\partial (R/A)/\partial H\,\sigma_H)^2}`,
+    the derivative taken by a central difference at :math:`H \pm \sigma_H` without gradient.
+    Measured on the demo campaign, the liquid balance at the measured state moves by tens of
+    pgrad sd within one holdup sd at low holdup, so without it the term mostly fits holdup noise.
 ``combined_residual``
     Rows with only holdup measured: the combined balance F [Pa/m] at the measured state,
     divided by the sum of the magnitudes of its four terms evaluated with the BASELINE closure
@@ -97,6 +107,7 @@ class LossSettings:
     pgrad_rel_sd: float = 0.05  # [-]
     pgrad_sd_floor: float = 1.0  # [Pa/m]
     pattern_margin: float = 0.05  # [-]
+    effective_variance: bool = False  # propagate holdup_sd into the phase-residual scale
     select: str = "thinnest"
     n_grid: int = 40
 
@@ -145,6 +156,20 @@ def smoothness(closure: NeuralClosure, s: LocalState) -> torch.Tensor:
     return total
 
 
+def holdup_sensitivity(closure, cond: Conditions, holdup: torch.Tensor, holdup_sd: torch.Tensor, kind: str,
+                       pgrad: torch.Tensor) -> tuple[torch.Tensor, torch.Tensor]:
+    """Change of R_L/A_L and R_G/A_G [Pa/m] over one holdup sd, ``(M,)`` each (no gradient):
+    half the difference between the residuals at H + sd and H - sd (clamped inside (0, 1))."""
+    with torch.no_grad():
+        out = []
+        for sign in (1.0, -1.0):
+            Hs = (holdup + sign * holdup_sd).clamp(1e-6, 1 - 1e-6)
+            s = local_state(cond, frac_from_holdup(Hs, kind), kind)
+            tau = shear_stresses(s, closure(s))
+            out.append((liquid_residual(s, tau, pgrad) / s.geom.A_L, gas_residual(s, tau, pgrad) / s.geom.A_G))
+        return (0.5 * (out[0][0] - out[1][0])).abs(), (0.5 * (out[0][1] - out[1][1])).abs()
+
+
 class _Acc:
     """Weighted sums and counts per term."""
 
@@ -180,6 +205,9 @@ class ClosureLoss(nn.Module):
         sh, sp = uncertainties(batch, cfg)
         H, P = batch["holdup"], batch["pgrad"]
         has_h, has_p = torch.isfinite(H), torch.isfinite(P)
+        # a measured state needs 0 < H < 1: a reading of exactly 0 or 1 (clipped by the data
+        # reduction) is no separated-flow state; such rows keep only their data-misfit terms
+        state_h = has_h & (H > 0) & (H < 1)
         wt = cfg.weights
         use_res = wt["phase_residual"] > 0 or wt["combined_residual"] > 0
         use_data = wt["data_holdup"] > 0 or wt["data_pgrad"] > 0
@@ -188,7 +216,7 @@ class ClosureLoss(nn.Module):
         for kind in KINDS:
             sel = batch["kind"] == KIND_CODE[kind]
             # --- (1), (2): residuals at the measured state
-            meas = sel & has_h
+            meas = sel & state_h
             if meas.any():
                 c = batch_conditions(batch, meas)
                 s = local_state(c, frac_from_holdup(H[meas], kind), kind)
@@ -201,8 +229,12 @@ class ClosureLoss(nn.Module):
                     p, sig = P[meas][both], sp[meas][both]
                     sb = local_state(c[both], s.geom.frac[both], kind)
                     tb = type(tau)(*(t[both] for t in tau))
-                    r_l = liquid_residual(sb, tb, p) / (sb.geom.A_L * sig)
-                    r_g = gas_residual(sb, tb, p) / (sb.geom.A_G * sig)
+                    s_l = s_g = sig
+                    if cfg.effective_variance:
+                        d_l, d_g = holdup_sensitivity(closure, c[both], H[meas][both], sh[meas][both], kind, p)
+                        s_l, s_g = torch.sqrt(sig**2 + d_l**2), torch.sqrt(sig**2 + d_g**2)
+                    r_l = liquid_residual(sb, tb, p) / (sb.geom.A_L * s_l)
+                    r_g = gas_residual(sb, tb, p) / (sb.geom.A_G * s_g)
                     acc.add("phase_residual", 0.5 * (r_l**2 + r_g**2), w_row[meas][both])
                 only = ~both
                 if only.any():
@@ -220,7 +252,7 @@ class ClosureLoss(nn.Module):
                 wd = w_row[data]
                 acc.add("data_holdup", ((sol.holdup[hh] - H[data][hh]) / sh[data][hh]) ** 2, wd[hh])
                 acc.add("data_pgrad", ((sol.pgrad.total[hp] - P[data][hp]) / sp[data][hp]) ** 2, wd[hp])
-                solved = ok & ~has_h[data]
+                solved = ok & ~state_h[data]
                 if solved.any():
                     s_det = local_state(batch_conditions(batch, data)[solved], sol.frac[solved].detach(), kind)
                     reg_states.append((s_det, wd[solved]))

@@ -1,0 +1,69 @@
+"""``closure-nn evaluate``: baseline vs fine-tuned closure vs black-box regressor on held-out lab rows.
+
+Examples (key=value arguments are Hydra overrides of conf/evaluate.yaml)::
+
+    closure-nn evaluate                                  # demo campaign; pre-trains first
+    closure-nn evaluate --bundle runs/train-.../bundle   # start every split from this pre-trained bundle
+    closure-nn evaluate kfold.k=0 splits.grouped.by=theta_band splits.grouped.test_groups=null
+
+Writes a run folder (``run_root``/evaluate-<time>): evaluation.json/.csv, predictions per split,
+parity, residual, training-curve and k-fold figures, the fine-tuning runs, CAUTION.txt.
+"""
+from __future__ import annotations
+
+import argparse
+import math
+
+from ..caution import CAUTION
+from ..config import load_config
+from ..physics.checks import InputError
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--bundle", default=None, help="pre-trained closure bundle to fine-tune from (default: pre-train here)")
+    p.add_argument("--lab", default=None, help="lab table (default: the experiment's, data_demo/lab_campaign.csv)")
+    p.add_argument("--show-config", action="store_true", help="print the composed config and exit")
+
+
+def _fmt(x: float, spec: str) -> str:
+    return "-" if x is None or (isinstance(x, float) and math.isnan(x)) else format(x, spec)
+
+
+def summary_lines(report: dict) -> list[str]:
+    """One line per split and model: holdup MAE, pgrad MAPE and share within +-20 %, pattern accuracy."""
+    lines = []
+    for split, r in report["splits"].items():
+        held = f" (held out {r['by']} = {', '.join(r['test_groups'])})" if r["kind"] == "grouped" else ""
+        lines.append(f"{split} split{held}: {r['n_train']} training rows, {r['n_test']} held-out rows "
+                     f"({r['n_test_corrupted']} corrupted, left out of these scores)")
+        for model, m in r["scores"]["clean"].items():
+            lines.append(f"  {model:<10s} holdup MAE {_fmt(m['holdup_mae'], '.4f')}  MAPE {_fmt(m['holdup_mape'], '5.1f')} %  "
+                         f"pgrad MAPE {_fmt(m['pgrad_mape'], '6.1f')} %  within 20 % {_fmt(m['pgrad_within_20'], '.3f')}  "
+                         f"pattern {_fmt(m['pattern_accuracy'], '.3f')}")
+    return lines
+
+
+def run(args: argparse.Namespace, overrides: list[str]) -> int:
+    from omegaconf import OmegaConf
+    from omegaconf.errors import MissingMandatoryValue
+
+    cfg = load_config("evaluate", overrides)
+    if args.show_config:
+        print(OmegaConf.to_yaml(cfg))
+        return 0
+    try:
+        OmegaConf.to_container(cfg, resolve=True, throw_on_missing=True)
+    except MissingMandatoryValue as exc:
+        raise InputError(f"config evaluate: a value is required for {exc.full_key} (give {exc.full_key}=...)") from None
+    from ..run_folder import make_run_dir
+    from ..training.evaluate import load_lab, repo_path, run_evaluation  # imports Lightning
+
+    if args.bundle and not repo_path(args.bundle).exists():
+        raise FileNotFoundError(2, "No such bundle", args.bundle)
+    lab = load_lab(args.lab or cfg.lab)
+    run_dir = make_run_dir("evaluate", root=cfg.run_root, name=cfg.run_name)
+    report = run_evaluation(cfg, lab, args.bundle, run_dir)
+    print("\n".join(summary_lines(report)))
+    print(f"run folder: {run_dir} ({report['seconds']['total']:.0f} s)")
+    print(CAUTION)
+    return 0
