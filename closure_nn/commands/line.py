@@ -95,6 +95,12 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
         print(f"  {name:<14} inlet {s['p_inlet_bar']:8.3f} bar  outlet {s['p_outlet_bar']:8.3f} bar  "
               f"dp {s['dp_total_Pa'] / 1e5:7.3f} bar (friction {s['dp_friction_Pa'] / 1e5:.3f}, gravity "
               f"{s['dp_gravity_Pa'] / 1e5:.3f})  liquid {s['liquid_inventory_m3']:8.1f} m3{ood_txt}")
+        m = s["march"]
+        if m.get("outlet_target_in_pattern_jump"):
+            print(f"  {'':<14} note: the outlet target falls in a {m['outlet_jump_Pa']:.0f} Pa jump of the outlet "
+                  f"pressure (a flow-pattern switch); closest solution reported, miss {m['outlet_miss_Pa']:.0f} Pa")
+        elif not m["converged"]:
+            print(f"  {'':<14} note: the march did not fully converge (last sweep change {m['last_sweep_change_Pa']:.3g} Pa)")
     if "ensemble" in summ:
         e = summ["ensemble"]
         print(f"  ensemble of {e['members']}: inlet {e['p_inlet_Pa']['min'] / 1e5:.3f}-{e['p_inlet_Pa']['max'] / 1e5:.3f} bar, "
