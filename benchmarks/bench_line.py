@@ -42,7 +42,7 @@ def main() -> None:
     ap.add_argument("--length", type=float, default=50_000.0)
     ap.add_argument("--members", type=int, default=5)
     ap.add_argument("--boundary", default="outlet", choices=("inlet", "outlet"))
-    ap.add_argument("--threads", type=int, default=2)
+    ap.add_argument("--threads", type=int, default=1)
     a = ap.parse_args()
     torch.set_num_threads(a.threads)
     line = bench_line(a.stations, a.length, a.boundary)

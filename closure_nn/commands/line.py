@@ -82,7 +82,7 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
         settings = MarchSettings(**OmegaConf.to_container(cfg.march))
     except TypeError as exc:
         raise InputError(f"march: {exc}") from None
-    torch.set_num_threads(max(1, min(torch.get_num_threads(), 2)))
+    torch.set_num_threads(max(1, int(cfg.get("threads", 1))))
     result = run_line(line, closures, members, solver=dict(cfg.solver), settings=settings)
     run_dir = make_run_dir("line", args.out or cfg.run_root)
     files = write_line_run(result, run_dir, config_yaml=OmegaConf.to_yaml(cfg), plot=cfg.plot and not args.no_plot)
