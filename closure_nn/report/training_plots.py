@@ -153,7 +153,7 @@ def evaluation_figures(report: dict, keep: dict, run: str | Path) -> list[str]:
     """All figures of an evaluation report into ``run``; returns their paths."""
     run = Path(run)
     out = []
-    corr = f"{report['corrupted_rows']} documented corrupted rows left out of scoring"
+    corr = f"the documented corrupted rows ({report['corrupted_rows']} in the table) left out of scoring"
     for name, k in keep.items():
         s = report["splits"][name]
         what = "random split" if s["kind"] == "random" else f"grouped split, held out {s['by']} = {', '.join(s['test_groups'])}"

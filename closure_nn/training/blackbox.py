@@ -132,7 +132,8 @@ class BlackBoxRegressor(nn.Module):
         n_val = min(max(int(round(s.val_fraction * n)), 1 if s.val_fraction > 0 else 0), n - 1)
         val, tr = perm[:n_val], perm[n_val:]
         self.x_mean.copy_(x[tr].mean(dim=0))
-        self.x_std.copy_(x[tr].std(dim=0).clamp_min(1e-12))
+        sd = x[tr].std(dim=0)
+        self.x_std.copy_(torch.where(sd > 1e-9, sd, torch.ones_like(sd)))  # a constant input stays unscaled
         opt = torch.optim.Adam(self.net.parameters(), lr=float(s.lr), weight_decay=float(s.weight_decay))
         best, best_state, stale = math.inf, copy.deepcopy(self.net.state_dict()), 0
         self.history = []

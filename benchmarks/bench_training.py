@@ -1,0 +1,106 @@
+"""Training benchmarks (wall time, never asserted in tests). Run:
+
+    .venv/bin/python benchmarks/bench_training.py [--rows 100000] [--threads 2] [--skip-demo]
+
+1. One training epoch over ``--rows`` synthetic rows (conf/design/demo_loop.yaml, baseline
+   Churchill + Andritsos-Hanratty labels) with the residual-only loss (phase/combined residuals,
+   prior, smoothness; no solver in the loop), batch 4096. Goal <= 2 s.
+2. The same with the solver-in-the-loop misfit (data_holdup, data_pgrad on; the equilibrium and
+   its implicit gradient per batch). Goal <= 10 s.
+3. The demo's pre-train + fine-tune (:func:`closure_nn.training.evaluate.train_experiment`,
+   conf/experiment/demo.yaml). Goal <= 5 min on 2 cores.
+
+Epoch times are the training part of one epoch measured by the EpochTimer callback
+(``seconds_per_epoch`` of the metrics; no validation). Wall times by ``time.perf_counter``. Prints
+one JSON line per measurement plus the machine.
+"""
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import platform
+import tempfile
+import time
+import warnings
+from pathlib import Path
+
+
+def machine() -> dict:
+    import torch
+
+    cpu = "?"
+    try:
+        for line in Path("/proc/cpuinfo").read_text().splitlines():
+            if line.startswith("model name"):
+                cpu = line.split(":", 1)[1].strip()
+                break
+    except OSError:
+        pass
+    load = os.getloadavg()[0] if hasattr(os, "getloadavg") else float("nan")
+    return {"cpu": cpu, "cores": os.cpu_count(), "python": platform.python_version(), "torch": torch.__version__,
+            "load_1min_at_start": load}
+
+
+def epoch_time(table: Path, root: Path, solver: bool, threads: int) -> dict:
+    from closure_nn.config import load_config
+    from closure_nn.training.run import train
+
+    w = ["loss.weights.data_holdup=1.0", "loss.weights.data_pgrad=1.0"] if solver else \
+        ["loss.weights.data_holdup=0.0", "loss.weights.data_pgrad=0.0"]
+    cfg = load_config("train", [f"data.train={table}", f"run_root={root}", "trainer.max_epochs=1", "trainer.patience=0",
+                                "trainer.batch_size=4096", "trainer.progress_bar=false", f"trainer.num_threads={threads}",
+                                "closure.wall=churchill", "data.val_fraction=0.01", "loss.weights.pattern=0.0", *w])
+    m = train(cfg)
+    return {"what": "epoch, solver-in-the-loop misfit" if solver else "epoch, residual-only loss",
+            "seconds_per_epoch": m["seconds_per_epoch"], "rows": None}
+
+
+def main(argv: list[str] | None = None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--rows", type=int, default=100_000)
+    ap.add_argument("--threads", type=int, default=2)
+    ap.add_argument("--skip-demo", action="store_true")
+    a = ap.parse_args(argv)
+    warnings.simplefilter("ignore")
+    import torch
+    from omegaconf import OmegaConf
+
+    from closure_nn.closures.baseline import BaselineClosure
+    from closure_nn.config import load_config
+    from closure_nn.data.design_space import parse_design
+    from closure_nn.data.synthetic import synthesize
+    from closure_nn.data.table_io import write_table
+
+    torch.set_num_threads(a.threads)
+    print(json.dumps({"machine": machine()}))
+    with tempfile.TemporaryDirectory() as tmp:
+        root = Path(tmp)
+        d = load_config("synth", [])
+        t0 = time.perf_counter()
+        s = synthesize(parse_design(OmegaConf.to_container(d.design, resolve=True)), a.rows, 0,
+                       BaselineClosure(wall="churchill"), progress=False)
+        table = write_table(s.table, root / "synth.parquet")
+        n_sep = int(s.table["pattern"].isin(["stratified_smooth", "stratified_wavy", "annular"]).sum())
+        print(json.dumps({"what": "synthetic set", "rows": a.rows, "separated_rows": n_sep, "seconds": time.perf_counter() - t0}))
+        for solver in (False, True):
+            r = epoch_time(table, root / "runs", solver, a.threads)
+            r["rows"] = a.rows
+            r["separated_rows_trained"] = int(round(0.99 * n_sep))
+            print(json.dumps(r))
+        if not a.skip_demo:
+            from closure_nn.training.evaluate import load_lab, train_experiment
+
+            cfg = load_config("evaluate", [])
+            lab = load_lab(cfg.lab)
+            t0 = time.perf_counter()
+            r = train_experiment(cfg, lab, root / "demo")
+            print(json.dumps({"what": "demo pre-train + fine-tune (train_experiment)", "wall_seconds": time.perf_counter() - t0,
+                              "parts": r["seconds"], "members": r["members"]}))
+            r3 = train_experiment(cfg, lab, root / "demo3", members=3)
+            print(json.dumps({"what": "demo pre-train + fine-tune, 3-member ensemble", "parts": r3["seconds"], "members": 3}))
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
