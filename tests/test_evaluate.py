@@ -159,3 +159,12 @@ def test_report_files_are_written(tiny_report):
     # solver outputs satisfy the balances (by construction; root-finder tolerance)
     assert all(v < 1e-6 for v in g["solver_residual_max"].values()), g["solver_residual_max"]
     assert len(saved["kfold"]["folds"]["learned"]) == 2
+
+
+def test_cli_evaluate_shows_its_config_and_rejects_a_missing_bundle(capsys):
+    from closure_nn.cli import main
+
+    assert main(["evaluate", "--show-config", "kfold.k=3"]) == 0
+    assert "k: 3" in capsys.readouterr().out
+    assert main(["evaluate", "--bundle", "/nonexistent/bundle"]) == 2
+    assert "not found" in capsys.readouterr().err

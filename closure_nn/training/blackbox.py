@@ -75,7 +75,7 @@ class BlackBoxRegressor(nn.Module):
     >>> df = pd.DataFrame({c: np.full(40, v) for c, v in zip(INPUT_COLUMNS, (0.1, 2.0, 0.05, 0.0, 0.0, 998.0,
     ...                    1.2, 1e-3, 1.8e-5, 0.072))}).assign(vsl=10 ** rng.uniform(-2, 0, 40))
     >>> df["holdup"], df["pgrad"] = 0.5, 100.0
-    >>> bb = BlackBoxRegressor(BlackBoxSettings(hidden=(8,), max_epochs=200, patience=0)).fit(df)
+    >>> bb = BlackBoxRegressor(BlackBoxSettings(hidden=(8,), max_epochs=300, lr=2e-2, patience=0)).fit(df)
     >>> p = bb.predict(df.iloc[:2])
     >>> bool(abs(p["holdup"][0] - 0.5) < 0.05), bool(abs(p["pgrad"][0] / 100 - 1) < 0.1)
     (True, True)
