@@ -1,6 +1,8 @@
 """Mechanistic baseline closure assembled from published correlations chosen by name."""
 from __future__ import annotations
 
+import torch
+
 from ..physics.geometry import ANNULAR
 from ..physics.local_state import LocalState
 from ..physics.momentum import FrictionFactors
@@ -48,6 +50,8 @@ class BaselineClosure(Closure):
             f_i = self._annular(state, f_wg)
         else:
             f_i = self._interface(state, f_wg, **self.interface_kwargs)
+        # a correlation may depend on fewer inputs than the state has (Wallis: frac only)
+        f_wl, f_wg, f_i = torch.broadcast_tensors(f_wl, f_wg, f_i)
         return FrictionFactors(f_wl=f_wl, f_wg=f_wg, f_i=f_i)
 
     def describe(self) -> dict:

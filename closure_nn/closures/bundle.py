@@ -187,7 +187,7 @@ def export_plain(closure: NeuralClosure, path: str | os.PathLike) -> Path:
     spec = {
         "format": PLAIN_FORMAT, "format_version": 1, "feature_names": list(FEATURE_NAMES),
         "outputs": list(OUTPUT_NAMES), "activation": closure.activation, "mode": closure.mode,
-        "bound": closure.bound, "direct_span": closure.direct_span, "log_f_ref": closure.log_f_ref.tolist(),
+        "bound": closure.bound_vec.tolist(), "direct_span": closure.direct_span, "log_f_ref": closure.log_f_ref.tolist(),
         "baseline": closure.hparams["baseline"],
         "scaler": {"mean": closure.feature_mean.tolist(), "std": closure.feature_std.tolist()},
         "branches": branches,

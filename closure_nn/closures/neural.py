@@ -106,7 +106,7 @@ class NeuralClosure(Closure):
     """
 
     def __init__(self, hidden: Sequence[int] = (32, 32), activation: str = "silu", mode: str = "correction",
-                 bound: float = 1.0, direct_span: float = 6.0,
+                 bound: float | dict = 1.0, direct_span: float = 6.0,
                  baseline: BaselineClosure | dict | None = None, inputs: dict | None = None,
                  learn: Sequence[str] | None = None) -> None:
         super().__init__()
@@ -114,14 +114,19 @@ class NeuralClosure(Closure):
             raise ValueError(f"unknown neural closure mode {mode!r}; known: {', '.join(MODES)}")
         if activation not in ACTIVATIONS:
             raise ValueError(f"unknown activation {activation!r}; known: {', '.join(ACTIVATIONS)}")
-        if bound <= 0 or direct_span <= 0:
+        bounds = [float(bound.get(k, 1.0)) for k in OUTPUT_NAMES] if isinstance(bound, dict) else [float(bound)] * 3
+        if isinstance(bound, dict) and set(bound) - set(OUTPUT_NAMES):
+            raise ValueError(f"bound: unknown factor(s) {sorted(set(bound) - set(OUTPUT_NAMES))}; known: {', '.join(OUTPUT_NAMES)}")
+        if min(bounds) <= 0 or direct_span <= 0:
             raise ValueError(f"bound and direct_span must be positive, got {bound} and {direct_span}")
         if baseline is None:
             baseline = BaselineClosure()
         elif isinstance(baseline, dict):
             baseline = BaselineClosure(**baseline)
         self.baseline = baseline
-        self.mode, self.activation, self.bound, self.direct_span = mode, activation, float(bound), float(direct_span)
+        self.mode, self.activation, self.direct_span = mode, activation, float(direct_span)
+        # one bound per factor (f_wl, f_wg, f_i): |ln(f / f_base)| <= bound in correction mode
+        self.bound = dict(zip(OUTPUT_NAMES, bounds)) if isinstance(bound, dict) else float(bound)
         self.hidden = tuple(int(h) for h in hidden)
         n_in = len(FEATURE_NAMES)
         self.learn = list(OUTPUT_NAMES) if learn is None else [k for k in OUTPUT_NAMES if k in set(learn)]
@@ -162,6 +167,7 @@ class NeuralClosure(Closure):
             self.branches.append(nn.Sequential(*layers, head))
         self.double()
         f64 = dict(dtype=torch.float64)
+        self.register_buffer("bound_vec", torch.tensor(bounds, **f64))
         self.register_buffer("feature_mean", torch.zeros(n_in, **f64))
         self.register_buffer("feature_std", torch.ones(n_in, **f64))
         self.register_buffer("log_f_ref", torch.log(torch.tensor([0.005, 0.005, 0.01], **f64)))
@@ -223,7 +229,7 @@ class NeuralClosure(Closure):
             full[..., [j for outs in self.branch_outputs for j in outs]] = out
             out = full
         if self.mode == "correction":
-            return self.bound * torch.tanh(out)
+            return self.bound_vec * torch.tanh(out)
         return self.direct_span * torch.tanh(out / self.direct_span)
 
     def log_friction(self, state: LocalState) -> torch.Tensor:

@@ -11,7 +11,7 @@ log10_Re_G     log10(rho_G u_G D_G / mu_G)                                      
 frac           h/D (stratified) or delta/D (annular)                                  TD76
 Fr_L           u_L / sqrt(g D)                                                        (a)
 Fr_G           sqrt(rho_G/(rho_L - rho_G)) u_G / sqrt(g D)  (densimetric)             TD76 eq.25
-log10_We       log10(rho_G (u_G - u_L)^2 D / sigma)                                   (a)
+log10_1p_We    log10(1 + rho_G (u_G - u_L)^2 D / sigma)  (1 + : smooth at zero slip)  (a)
 log10_rho_ratio  log10(rho_G / rho_L)                                                 (a)
 log10_mu_ratio   log10(mu_G / mu_L)                                                   (a)
 rel_rough      roughness / D                                                          (a)
@@ -32,7 +32,7 @@ from .geometry import ANNULAR
 from .local_state import LocalState
 
 FEATURE_NAMES: tuple[str, ...] = (
-    "log10_Re_L", "log10_Re_G", "frac", "Fr_L", "Fr_G", "log10_We",
+    "log10_Re_L", "log10_Re_G", "frac", "Fr_L", "Fr_G", "log10_1p_We",
     "log10_rho_ratio", "log10_mu_ratio", "rel_rough", "sin_theta", "annular",
 )
 _FLOOR = 1e-30
@@ -53,14 +53,15 @@ def closure_features(s: LocalState) -> torch.Tensor:
         s.geom.frac,
         s.u_L / gD,
         torch.sqrt(s.rho_core / drho) * s.u_G / gD,
-        _log10(s.rho_core * (s.u_G - s.u_L) ** 2 * c.D / c.sigma),
+        torch.log10(1 + s.rho_core * (s.u_G - s.u_L) ** 2 * c.D / c.sigma),
         _log10(s.rho_core / c.rhol),
         _log10(c.mug / c.mul),
         c.roughness / c.D,
         torch.sin(c.theta),
         torch.full_like(c.D, 1.0 if s.kind == ANNULAR else 0.0),
     ]
-    cols = [torch.broadcast_to(x, s.geom.frac.shape) for x in cols]
+    shape = torch.broadcast_shapes(*(x.shape for x in cols))
+    cols = [torch.broadcast_to(x, shape) for x in cols]
     return torch.stack(cols, dim=-1)
 
 

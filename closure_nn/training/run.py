@@ -22,8 +22,10 @@ from __future__ import annotations
 
 import copy
 import csv
+import logging
 import math
 import time
+import warnings
 from pathlib import Path
 
 import lightning as L
@@ -69,7 +71,8 @@ def _baseline_kwargs(cfg: DictConfig) -> dict:
 
 def _new_closure(cfg: DictConfig, df: pd.DataFrame) -> NeuralClosure:
     m = cfg.model
-    closure = NeuralClosure(hidden=list(m.hidden), activation=m.activation, mode=m.mode, bound=m.bound,
+    bound = OmegaConf.to_container(m.bound) if OmegaConf.is_config(m.bound) else m.bound
+    closure = NeuralClosure(hidden=list(m.hidden), activation=m.activation, mode=m.mode, bound=bound,
                             direct_span=m.direct_span, baseline=_baseline_kwargs(cfg),
                             inputs=OmegaConf.to_container(m.inputs, resolve=True) if m.get("inputs") else None,
                             learn=list(m.learn) if m.get("learn") else None)
@@ -178,6 +181,14 @@ def _flatten(d: dict, prefix: str = "") -> dict:
     return out
 
 
+def _quiet_lightning() -> None:
+    """Silence Lightning's start-up notices (accelerator availability, a hosted-logging tip) and a
+    deprecation warning of its internals: noise on a CPU-only tool. Warnings of our own stay."""
+    logging.getLogger("lightning.pytorch.utilities.rank_zero").setLevel(logging.WARNING)
+    logging.getLogger("lightning.pytorch.accelerators.cuda").setLevel(logging.WARNING)
+    warnings.filterwarnings("ignore", message=r".*LeafSpec.*")
+
+
 def train(cfg: DictConfig, callbacks: list | None = None) -> dict:
     """Run one training stage as configured (module docstring); returns the metrics dict.
 
@@ -185,6 +196,7 @@ def train(cfg: DictConfig, callbacks: list | None = None) -> dict:
     """
     if cfg.stage not in STAGES:
         raise InputError(f"train: stage = {cfg.stage!r}; expected one of {', '.join(STAGES)}")
+    _quiet_lightning()
     n_members = int(cfg.ensemble.members)
     if cfg.resume and n_members != 1:
         raise InputError("train: resume works for single-model runs (ensemble.members = 1)")
