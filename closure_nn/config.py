@@ -24,3 +24,14 @@ def load_config(name: str, overrides: list[str] | tuple[str, ...] = ()):
             return compose(config_name=name, overrides=list(overrides))
     except (HydraException, OmegaConfBaseException) as exc:
         raise InputError(f"config {name}: {str(exc).splitlines()[0]}") from None
+
+
+def require_complete(cfg, name: str) -> None:
+    """Raise :class:`InputError` naming the first ``???`` value a user still has to give."""
+    from omegaconf import OmegaConf
+    from omegaconf.errors import MissingMandatoryValue
+
+    try:
+        OmegaConf.to_container(cfg, resolve=True, throw_on_missing=True)
+    except MissingMandatoryValue as exc:
+        raise InputError(f"config {name}: a value is required for {exc.full_key} (give {exc.full_key}=...)") from None

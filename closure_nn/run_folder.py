@@ -27,18 +27,19 @@ def make_run_dir(command: str, root: str | os.PathLike | None = None, name: str 
     return path
 
 
+def json_default(o: Any):
+    """``json.dumps(default=...)`` hook: numpy/torch scalars and arrays, Paths."""
+    if hasattr(o, "item") and getattr(o, "ndim", 0) == 0:
+        return o.item()
+    if hasattr(o, "tolist"):
+        return o.tolist()
+    if isinstance(o, Path):
+        return str(o)
+    raise TypeError(f"not JSON serialisable: {type(o).__name__}")
+
+
 def write_json(path: str | os.PathLike, obj: Any) -> Path:
     """Write ``obj`` as indented JSON (numpy scalars and Paths converted)."""
-
-    def default(o: Any):
-        if hasattr(o, "item"):
-            return o.item()
-        if hasattr(o, "tolist"):
-            return o.tolist()
-        if isinstance(o, Path):
-            return str(o)
-        raise TypeError(f"not JSON serialisable: {type(o).__name__}")
-
     p = Path(path)
-    p.write_text(json.dumps(obj, indent=2, default=default) + "\n")
+    p.write_text(json.dumps(obj, indent=2, default=json_default) + "\n")
     return p

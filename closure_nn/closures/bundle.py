@@ -32,6 +32,7 @@ from typing import Any
 import torch
 
 from ..caution import CAUTION
+from ..run_folder import json_default
 from ..physics.checks import InputError
 from ..physics.groups import FEATURE_NAMES
 from .neural import OUTPUT_NAMES, NeuralClosure
@@ -69,16 +70,6 @@ def versions() -> dict[str, str]:
             "python": platform.python_version()}
 
 
-def _jsonable(o: Any):
-    if hasattr(o, "item"):
-        return o.item()
-    if hasattr(o, "tolist"):
-        return o.tolist()
-    if isinstance(o, Path):
-        return str(o)
-    raise TypeError(f"not JSON serialisable: {type(o).__name__}")
-
-
 def save_bundle(closure: NeuralClosure, path: str | os.PathLike, *, provenance: dict | None = None,
                 metrics: dict | None = None, config: dict | None = None, domain: dict | None = None) -> Path:
     """Write ``closure`` as a bundle directory at ``path`` (created; existing files replaced)."""
@@ -98,7 +89,7 @@ def save_bundle(closure: NeuralClosure, path: str | os.PathLike, *, provenance: 
         "provenance": provenance or {}, "metrics": metrics or {}, "config": config or {},
         "versions": versions(), "checksums": {WEIGHTS_FILE: _sha256(wpath)}, "caution": CAUTION,
     }
-    (p / META_FILE).write_text(json.dumps(meta, indent=2, default=_jsonable) + "\n")
+    (p / META_FILE).write_text(json.dumps(meta, indent=2, default=json_default) + "\n")
     return p
 
 

@@ -15,7 +15,7 @@ import argparse
 import math
 
 from ..caution import CAUTION
-from ..config import load_config
+from ..config import load_config, require_complete
 from ..physics.checks import InputError
 
 
@@ -45,16 +45,12 @@ def summary_lines(report: dict) -> list[str]:
 
 def run(args: argparse.Namespace, overrides: list[str]) -> int:
     from omegaconf import OmegaConf
-    from omegaconf.errors import MissingMandatoryValue
 
     cfg = load_config("evaluate", overrides)
     if args.show_config:
         print(OmegaConf.to_yaml(cfg))
         return 0
-    try:
-        OmegaConf.to_container(cfg, resolve=True, throw_on_missing=True)
-    except MissingMandatoryValue as exc:
-        raise InputError(f"config evaluate: a value is required for {exc.full_key} (give {exc.full_key}=...)") from None
+    require_complete(cfg, "evaluate")
     from ..run_folder import make_run_dir
     from ..training.evaluate import load_lab, repo_path, run_evaluation  # imports Lightning
 

@@ -12,7 +12,7 @@ import argparse
 from pathlib import Path
 
 from ..caution import CAUTION
-from ..config import load_config
+from ..config import load_config, require_complete
 from ..physics.checks import InputError
 
 
@@ -40,16 +40,12 @@ def _config(overrides: list[str]):
 
 def run(args: argparse.Namespace, overrides: list[str]) -> int:
     from omegaconf import OmegaConf
-    from omegaconf.errors import MissingMandatoryValue
 
     cfg = _config(overrides)
     if args.show_config:
         print(OmegaConf.to_yaml(cfg))
         return 0
-    try:
-        OmegaConf.to_container(cfg, resolve=True, throw_on_missing=True)
-    except MissingMandatoryValue as exc:
-        raise InputError(f"config train: a value is required for {exc.full_key} (give {exc.full_key}=...)") from None
+    require_complete(cfg, "train")
     from ..training.run import train  # imports Lightning
 
     m = train(cfg)
