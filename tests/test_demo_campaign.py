@@ -3,8 +3,10 @@ noise, labels and corruptions, and different enough from the baseline to be wort
 
 There is no outside source for invented data; what is checked is the generator's contract
 (data_demo/README.md): the committed files are exactly what the seeded generator writes; the
-noise has the stated standard deviations (holdup 0.02 absolute, pgrad 5 % + 2 Pa/m); the listed
-corruptions are present as described; everything else equals the reference closure's truth.
+noise has the stated standard uncertainties (the spec's +-0.02 holdup and +-5 % pgrad read as
+expanded uncertainties with coverage factor k = 2, JCGM 100:2008 sec. 6.2-6.3, so one sigma is
+holdup 0.01 absolute, pgrad 2.5 % + 1 Pa/m); the listed corruptions are present as described;
+everything else equals the reference closure's truth.
 """
 import math
 from pathlib import Path
@@ -75,6 +77,8 @@ def test_partial_labels_and_uncertainty_columns(clean):
     assert (h | p | f).all()
     assert (h & ~p & ~f).sum() > 100 and (p & ~h & ~f).sum() > 100 and (f & ~h & ~p).sum() > 100
     assert (h & p & f).sum() > 500
+    # the sd columns carry the ONE-sigma values, not the spec's expanded (k = 2) +-0.02 / +-5 %
+    assert dc.HOLDUP_SD == pytest.approx(0.02 / 2) and dc.PGRAD_SD_REL == pytest.approx(0.05 / 2)
     assert (clean["holdup_sd"].notna() == h).all() and (clean.loc[h, "holdup_sd"] == dc.HOLDUP_SD).all()
     assert (clean["pgrad_sd"].notna() == p).all()
     P = clean.loc[p, "pgrad"]
@@ -102,14 +106,14 @@ def test_each_corruption_is_what_it_says(camp, clean, corruptions):
     w, t = _by_run(clean, camp)
     for _, c in corruptions.iterrows():
         r, tr = w.loc[c.run_id], t.loc[c.run_id]
-        if c.kind == "pgrad_mbar_as_pa":  # 100x too small, within the 5 % noise
+        if c.kind == "pgrad_mbar_as_pa":  # 100x too small, within the noise (one sigma 2.5 %)
             assert 0.8e-2 < r.pgrad / tr.pgrad < 1.25e-2
         elif c.kind == "theta_sign":
             assert r.theta == pytest.approx(-tr.theta) and abs(tr.theta) > 0
         elif c.kind == "vsg_ft_per_s":
             assert r.vsg == pytest.approx(tr.vsg / 0.3048, rel=1e-3)
         elif c.kind == "swap_pgrad":
-            assert not (abs(r.pgrad - tr.pgrad) < 4 * (0.05 * abs(tr.pgrad) + 2))
+            assert not (abs(r.pgrad - tr.pgrad) < 4 * (dc.PGRAD_SD_REL * abs(tr.pgrad) + dc.PGRAD_SD_ABS))  # > 4 sd
         elif c.kind in ("swap_holdup", "holdup_wrong_run"):
             assert abs(r.holdup - tr.holdup) > 0.15
         else:
@@ -124,10 +128,14 @@ def test_uncorrupted_rows_are_truth_plus_stated_noise(camp, clean, corruptions):
         assert np.array_equal(w[col].to_numpy(), t[col].to_numpy()), col  # the truth is of the written inputs
     h = w["holdup"].notna() & (w["holdup"] > 0) & (w["holdup"] < 1)  # clipped rows left out
     dh = (w.loc[h, "holdup"] - t.loc[h, "holdup"]).to_numpy()
-    assert abs(dh.mean()) < 0.003 and 0.018 < dh.std() < 0.022  # sd 0.02
-    p = w["pgrad"].notna() & (t["pgrad"].abs() > 200)  # where the 5 % part dominates
+    # one sigma 0.01 (k = 2 reading of the spec's +-0.02); bounds +-10 % as for the old 0.02 reading,
+    # the mean bound halved with the sd. Measured on the committed files: mean 0.0006, sd 0.0103 (1,423 rows)
+    assert abs(dh.mean()) < 0.0015 and 0.009 < dh.std() < 0.011
+    p = w["pgrad"].notna() & (t["pgrad"].abs() > 200)  # where the relative part dominates
     rel = ((w.loc[p, "pgrad"] - t.loc[p, "pgrad"]) / t.loc[p, "pgrad"]).to_numpy()
-    assert abs(rel.mean()) < 0.01 and 0.045 < rel.std() < 0.056
+    # one sigma 2.5 % (k = 2 reading of +-5 %); bounds halved from the old 5 % reading.
+    # Measured on the committed files: mean -0.0010, sd 0.0252 (790 rows)
+    assert abs(rel.mean()) < 0.005 and 0.0225 < rel.std() < 0.028
 
 
 def test_observed_patterns_mostly_true_with_some_confusions(camp, clean):
@@ -147,7 +155,9 @@ def test_truth_is_the_reference_closure(camp):
 def test_baseline_clearly_off_in_stratified_flow(camp):
     rep = dc.baseline_vs_truth(camp)
     assert rep["stratified_rows"] > 500
-    assert rep["holdup_mae_stratified"] > 1.5 * dc.HOLDUP_SD  # well above the measurement noise
+    # well above the measurement noise: 3x the one-sigma 0.01 (the same 0.03 floor as 1.5 x the
+    # old 0.02 reading); measured 0.0366 (--report)
+    assert rep["holdup_mae_stratified"] > 3 * dc.HOLDUP_SD
     assert rep["holdup_median_rel_err_stratified"] > 0.15
 
 
