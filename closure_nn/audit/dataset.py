@@ -3,7 +3,8 @@ r"""Consistency audit of a measurement table against a closure: residuals and su
 :func:`audit_dataset` takes a validated SI table (:mod:`closure_nn.data.schema`) and a closure
 and returns, per row, the momentum-balance residuals at the measured state
 (:mod:`closure_nn.audit.residuals`), the closure's own prediction (point solver) and the checks
-below. A row is *suspect* when at least one check fires; every check writes its reason.
+below. A row is *suspect* when at least one measurement check fires; every check writes its reason.
+``outside_domain`` describes the closure's coverage, not the measurement: it is reported, never suspect.
 
 ==========================  ===============================================================
 check code                  fires when (k = ``k_robust``, c = ``k_sigma`` of :class:`AuditSettings`)
@@ -88,6 +89,8 @@ CHECKS: dict[str, str] = {
     "holdup_below_no_slip": "upward flow, holdup below the no-slip holdup",
     "outside_domain": "outside the closure's training domain",
 }
+#: checks that describe the closure's coverage, not the measurement: reported, never "suspect"
+INFORMATIONAL = ("outside_domain",)
 
 
 @dataclass(frozen=True)
@@ -319,7 +322,8 @@ def audit_dataset(df: pd.DataFrame, closure, settings: AuditSettings | None = No
         **{f"z_{r}": z[r].numpy() for r in SCORES},
         "holdup_pred": H_pred.numpy(), "pgrad_pred": P_pred.numpy(),
         "z_holdup": z_H.numpy(), "z_pgrad": z_P.numpy(), "kh_ratio_eq": kh_eq.numpy(), "kh_ratio_meas": res.kh_ratio.numpy(), "in_domain": in_dom,
-        "suspect": flags.any(axis=1), "checks": codes, "reasons": reasons,
+        "suspect": flags[:, [j for j, k in enumerate(names) if k not in INFORMATIONAL]].any(axis=1),
+        "checks": codes, "reasons": reasons,
     })
     counts = {k: int(flags[:, j].sum()) for j, k in enumerate(names)}
     label = getattr(closure, "label", type(closure).__name__)
