@@ -93,7 +93,9 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     # 4. the line: baseline vs learned vs ensemble band
     t0 = _stage("4/4 line calculation: baseline vs learned closure vs ensemble band")
     (run_dir / "line").mkdir()
-    line_cmd.run(argparse.Namespace(line_file=None, closure=[f"learned={learned_bundle}"],
+    # the learned line is the ensemble's mean closure (geometric mean of the members' factors), so
+    # that the band brackets it; without an ensemble, the evaluated fine-tuned closure
+    line_cmd.run(argparse.Namespace(line_file=None, closure=[f"learned={members_dir or learned_bundle}"],
                                     ensemble=[members_dir] if members_dir else [], no_plot=False,
                                     out=str(run_dir / "line")), list(cfg.line))
     line_dir = _only_subdir(run_dir / "line")

@@ -119,7 +119,8 @@ def plot_line(stations, band=None, path: str | Path = "line.png", title: str = "
     for ax in (ax_p, ax_h):
         plt.setp(ax.get_xticklabels(), visible=False)
     ax_p.set_title(title, loc="left", fontsize=11)
-    fig.text(0.01, 0.005, CAUTION, fontsize=6, color="#555555", wrap=True)
+    # below the pattern legend; bbox_inches="tight" keeps it in the picture
+    fig.text(0.01, -0.03, CAUTION, fontsize=6, color="#555555", wrap=True, va="top")
     path = Path(path)
     fig.savefig(path, dpi=110, bbox_inches="tight")
     plt.close(fig)
