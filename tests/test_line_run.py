@@ -1,5 +1,10 @@
 """Line runs end to end: file format, side-by-side closures, ensemble band, out-of-domain
-flags, run-folder outputs, and the line/point commands staying free of Lightning."""
+flags, run-folder outputs, and the line/point commands staying free of Lightning.
+
+These are checks of the software's wiring, not of the physics: the physical references (the
+isothermal gas-line integral, fluids.compressible.isothermal_gas, Darcy-Weisbach with hydrostatic
+head, point gradient x length) are in test_line_march.py. The expected values here come from the
+library's own point solver and from arithmetic on the inputs (common practice for wiring tests)."""
 from __future__ import annotations
 
 import json

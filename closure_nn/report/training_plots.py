@@ -31,6 +31,16 @@ def _footer(fig, text: str) -> None:
     fig.text(0.01, 0.01, text, fontsize=7, color="#444444", ha="left", va="bottom", wrap=True)
 
 
+def _finish(plt, fig, title: str, how: str, path: Path) -> Path:
+    """Title, how-measured footer, layout, save as PNG and close."""
+    fig.suptitle(title, fontsize=10)
+    _footer(fig, how)
+    fig.tight_layout(rect=(0, 0.05, 1, 0.95))
+    fig.savefig(path, dpi=120)
+    plt.close(fig)
+    return path
+
+
 def parity_figure(test: pd.DataFrame, preds: dict, rows: np.ndarray, path: Path, title: str, how: str) -> Path:
     """Predicted vs measured holdup (linear) and pgrad (symmetric log) for every model."""
     plt = _plt()
@@ -55,12 +65,7 @@ def parity_figure(test: pd.DataFrame, preds: dict, rows: np.ndarray, path: Path,
     for ax in axes:
         ax.grid(True, color="#dddddd", lw=0.5)
     axes[0].legend(fontsize=8, loc="upper left", frameon=False)
-    fig.suptitle(title, fontsize=10)
-    _footer(fig, how)
-    fig.tight_layout(rect=(0, 0.05, 1, 0.95))
-    fig.savefig(path, dpi=120)
-    plt.close(fig)
-    return path
+    return _finish(plt, fig, title, how, path)
 
 
 def residual_figure(res: dict, path: Path, title: str, how: str, clip: float = 20.0) -> Path:
@@ -79,12 +84,7 @@ def residual_figure(res: dict, path: Path, title: str, how: str, clip: float = 2
         ax.set(xlabel=f"{phase} balance residual R/(A sigma_p) [effective sd]", title=f"{phase} phase")
         ax.legend(fontsize=7, frameon=False, loc="upper left")
     axes[0].set_ylabel("rows")
-    fig.suptitle(title, fontsize=10)
-    _footer(fig, how)
-    fig.tight_layout(rect=(0, 0.05, 1, 0.95))
-    fig.savefig(path, dpi=120)
-    plt.close(fig)
-    return path
+    return _finish(plt, fig, title, how, path)
 
 
 def read_curves(run_dir: str | Path) -> pd.DataFrame | None:
