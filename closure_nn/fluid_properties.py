@@ -38,7 +38,7 @@ def named_fluid(fluid: str, p, T) -> PhaseProperties:
     at absolute pressure p [Pa] and temperature T [K] (scalars or arrays, broadcast).
 
     >>> props = named_fluid("Water", 101325.0, 293.15)
-    >>> round(float(props.rho), 1)                     
+    >>> round(float(props.rho), 1)
     998.2
     """
     try:
