@@ -108,6 +108,8 @@ class LossSettings:
     pgrad_sd_floor: float = 1.0  # [Pa/m]
     pattern_margin: float = 0.05  # [-]
     effective_variance: bool = False  # propagate holdup_sd into the phase-residual scale
+    #: Cauchy scale c of the phase-residual term (None: plain squares); see :func:`cauchy`
+    residual_robust_scale: float | None = None
     select: str = "thinnest"
     n_grid: int = 40
 
@@ -126,6 +128,21 @@ class LossSettings:
     def prior_vector(self) -> torch.Tensor:
         """``(3,)`` float64 weights lambda_k in the order f_wl, f_wg, f_i."""
         return torch.tensor([self.prior_factors[k] for k in OUTPUT_NAMES], dtype=torch.float64)
+
+
+def cauchy(r: torch.Tensor, c: float | None) -> torch.Tensor:
+    r"""Robust square of standardised residuals ``r``: :math:`c^2 \ln(1 + r^2/c^2)` (Cauchy or
+    Lorentzian loss, e.g. Holland & Welsch 1977, Commun. Stat. A6(9):813-827, from memory), equal to
+    :math:`r^2` for :math:`|r| \ll c` and growing only logarithmically beyond, so a few
+    measured states far off (slips, clipped readings) cannot dominate. ``c = None``: :math:`r^2`.
+
+    >>> r = torch.tensor([0.1, 30.0], dtype=torch.float64)
+    >>> [round(x, 4) for x in cauchy(r, 3.0).tolist()], [round(x, 4) for x in cauchy(r, None).tolist()]
+    ([0.01, 41.5361], [0.01, 900.0])
+    """
+    if c is None:
+        return r**2
+    return c**2 * torch.log1p((r / c) ** 2)
 
 
 def batch_conditions(batch: dict[str, torch.Tensor], rows: torch.Tensor | None = None) -> Conditions:
@@ -235,7 +252,8 @@ class ClosureLoss(nn.Module):
                         s_l, s_g = torch.sqrt(sig**2 + d_l**2), torch.sqrt(sig**2 + d_g**2)
                     r_l = liquid_residual(sb, tb, p) / (sb.geom.A_L * s_l)
                     r_g = gas_residual(sb, tb, p) / (sb.geom.A_G * s_g)
-                    acc.add("phase_residual", 0.5 * (r_l**2 + r_g**2), w_row[meas][both])
+                    acc.add("phase_residual", 0.5 * (cauchy(r_l, cfg.residual_robust_scale)
+                                                     + cauchy(r_g, cfg.residual_robust_scale)), w_row[meas][both])
                 only = ~both
                 if only.any():
                     so = local_state(c[only], s.geom.frac[only], kind)
