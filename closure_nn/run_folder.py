@@ -15,7 +15,7 @@ def make_run_dir(command: str, root: str | os.PathLike | None = None, name: str 
 
     Writes CAUTION.txt into it.
     """
-    base = Path(root if root is not None else os.environ.get("CLOSURE_NN_RUNS", "runs"))
+    base = Path(root if root is not None else "runs")
     stem = name or f"{command}-{time.strftime('%Y%m%d-%H%M%S')}"
     path = base / stem
     n = 1

@@ -55,6 +55,16 @@ def md_table(df: pd.DataFrame, floatfmt: str = ".3g", max_rows: int | None = Non
     return "\n".join([head, sep, *body, *more])
 
 
+def _finish(plt, fig, title: str, path: str | Path, top: float = 0.95) -> Path:
+    """Title, layout, caution footer, save as PNG and close."""
+    fig.suptitle(title, fontsize=10)
+    fig.tight_layout(rect=(0, 0.05, 1, top))
+    _foot(fig)
+    fig.savefig(path, dpi=110)
+    plt.close(fig)
+    return Path(path)
+
+
 def plot_residuals(res: AuditResult, path: str | Path) -> Path:
     plt = _plt()
     t = res.table
@@ -95,12 +105,8 @@ def plot_residuals(res: AuditResult, path: str | Path) -> Path:
         ax.set_title(names[r], fontsize=9)
         ax.set_xlabel(f"standardised residual e [measurement sd]\n(end bins hold all |e| >= {E_CLIP:g})", fontsize=8)
         ax.set_ylabel("rows")
-    fig.suptitle(f"Momentum-balance residuals at the measured states - closure {res.closure_label}", fontsize=10)
-    fig.tight_layout(rect=(0, 0.05, 1, 0.96))
-    _foot(fig)
-    fig.savefig(path, dpi=110)
-    plt.close(fig)
-    return Path(path)
+    return _finish(plt, fig, f"Momentum-balance residuals at the measured states - closure {res.closure_label}",
+                   path, top=0.96)
 
 
 def plot_measured_vs_closure(res: AuditResult, path: str | Path) -> Path:
@@ -125,12 +131,7 @@ def plot_measured_vs_closure(res: AuditResult, path: str | Path) -> Path:
         ax.set_xlabel(f"closure {col} {unit}")
         ax.set_ylabel(f"measured {col} {unit}")
         ax.legend(fontsize=8, frameon=False)
-    fig.suptitle(f"Measurements against the closure's point solution - {res.closure_label}", fontsize=10)
-    fig.tight_layout(rect=(0, 0.05, 1, 0.95))
-    _foot(fig)
-    fig.savefig(path, dpi=110)
-    plt.close(fig)
-    return Path(path)
+    return _finish(plt, fig, f"Measurements against the closure's point solution - {res.closure_label}", path)
 
 
 def plot_root_map(health: HealthReport, path: str | Path) -> Path:

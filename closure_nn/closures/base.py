@@ -7,7 +7,6 @@ parameters to the implicit-gradient solver; baseline closures have none.
 """
 from __future__ import annotations
 
-import torch
 from torch import nn
 
 from ..physics.local_state import LocalState

@@ -27,7 +27,6 @@ import os
 import platform
 import time
 from pathlib import Path
-from typing import Any
 
 import torch
 

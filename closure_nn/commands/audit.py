@@ -39,7 +39,6 @@ def _closure_cfg(cfg, path: str | None):
 
 
 def run(args: argparse.Namespace, overrides: list[str]) -> int:
-    import pandas as pd
     from omegaconf import OmegaConf
 
     from ..audit.dataset import AuditSettings, audit_dataset

@@ -7,7 +7,7 @@ from pathlib import Path
 from ..caution import CAUTION
 from ..config import load_config
 from ..closures.registry import build_closure
-from ..physics.checks import InputError, check_conditions
+from ..physics.checks import check_conditions
 from ..physics.point import solve_points
 from ..run_folder import make_run_dir, write_json
 

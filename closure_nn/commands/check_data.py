@@ -8,7 +8,6 @@ Exit code 0 when at least one row is accepted (and, with ``--strict``, none reje
 from __future__ import annotations
 
 import argparse
-import os
 from pathlib import Path
 
 from ..config import load_config
@@ -36,7 +35,7 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
         raise InputError(f"table_format must be 'csv' or 'parquet', not {cfg.table_format!r}")
     table = read_table(args.file)
     res = validate_table(table, path=args.file, unknown=cfg.unknown_columns)
-    root = args.out or os.environ.get("CLOSURE_NN_RUNS") or cfg.run_root
+    root = args.out or cfg.run_root
     run_dir = make_run_dir("check-data", root=root)
     (run_dir / "config.yaml").write_text(OmegaConf.to_yaml(cfg))
     data_path = write_table(res.clean, run_dir / f"data_si.{cfg.table_format}", unit_headers=bool(cfg.unit_headers))

@@ -40,7 +40,6 @@ def _stage(title: str) -> float:
 def run(args: argparse.Namespace, overrides: list[str]) -> int:
     import json
 
-    import numpy as np
     import yaml
     from omegaconf import OmegaConf
 

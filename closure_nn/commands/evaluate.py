@@ -16,7 +16,6 @@ import math
 
 from ..caution import CAUTION
 from ..config import load_config, require_complete
-from ..physics.checks import InputError
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:

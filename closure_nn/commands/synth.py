@@ -14,7 +14,6 @@ Never imports Lightning (the data layer and the physics only).
 from __future__ import annotations
 
 import argparse
-import os
 
 from ..caution import CAUTION
 from ..config import load_config
@@ -48,7 +47,7 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     closure = build_closure(cfg.closure)
     result = synthesize(space, int(cfg.n), int(cfg.seed), closure, dict(cfg.solver), chunk=int(cfg.chunk),
                         progress=bool(cfg.progress) and not args.quiet)
-    root = args.out or os.environ.get("CLOSURE_NN_RUNS") or cfg.run_root
+    root = args.out or cfg.run_root
     run_dir = make_run_dir("synth", root=root, name=cfg.run_name)
     (run_dir / "config.yaml").write_text(OmegaConf.to_yaml(cfg, resolve=True))
     table_path = write_table(result.table, run_dir / f"synthetic.{cfg.table_format}")

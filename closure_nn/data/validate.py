@@ -111,7 +111,7 @@ class ValidationResult:
                                          "data_row"].tolist()
                 shown = ", ".join(str(r) for r in rows[:8]) + (", ..." if len(rows) > 8 else "")
                 lines.append(f"  {code:<17s} {n:6d} row(s)  {CHECKS.get(code, '')} (data rows {shown})")
-            lines.append(f"first messages (all in rejected.csv, values there in SI):")
+            lines.append("first messages (all in rejected.csv, values there in SI):")
             msgs = [m for r in self.rejected["reason"] for m in str(r).split(REASON_SEP)]
             lines += [f"  {m}" for m in msgs[:max_messages]]
             if len(msgs) > max_messages:

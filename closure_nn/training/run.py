@@ -36,7 +36,6 @@ from lightning.pytorch.loggers import CSVLogger
 from lightning.pytorch.strategies import DDPStrategy
 from omegaconf import DictConfig, OmegaConf
 
-from ..caution import CAUTION
 from ..closures.bundle import load_bundle, save_bundle
 from ..closures.ensemble import ClosureEnsemble, save_ensemble
 from ..closures.neural import NeuralClosure
@@ -47,7 +46,7 @@ from ..run_folder import make_run_dir, write_json
 from .loss import LossSettings
 from .metrics import accuracy
 from .module import ClosureTask, EpochTimer
-from .tables import bootstrap_table, concat_tensors, replay_sample, split_table, table_tensors
+from .tables import bootstrap_table, replay_sample, split_table, table_tensors
 
 STAGES = ("pretrain", "finetune", "update")
 BASELINE_KEYS = ("wall", "interface", "annular_interface", "interface_kwargs")
