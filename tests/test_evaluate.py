@@ -21,6 +21,7 @@ from closure_nn.closures.baseline import BaselineClosure
 from closure_nn.closures.neural import NeuralClosure
 from closure_nn.config import load_config
 from closure_nn.data.features import FeatureScaler, state_features, table_conditions
+from closure_nn.physics.checks import InputError
 from closure_nn.physics.holdup_roots import solve_separated
 from closure_nn.training.blackbox import INPUT_COLUMNS, BlackBoxRegressor, BlackBoxSettings
 from closure_nn.training.loss import TERMS, ClosureLoss, LossSettings
@@ -135,7 +136,9 @@ def tiny_report(tmp_path_factory):
     lab = lab.iloc[np.sort(rng.permutation(len(lab))[:300])].reset_index(drop=True)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        return run_evaluation(cfg, lab, None, run / "out"), run / "out"
+        from closure_nn.report.training_plots import evaluation_figures
+
+        return run_evaluation(cfg, lab, None, run / "out", figures=evaluation_figures), run / "out"
 
 
 def test_report_files_are_written(tiny_report):
@@ -168,3 +171,21 @@ def test_cli_evaluate_shows_its_config_and_rejects_a_missing_bundle(capsys):
     assert "k: 3" in capsys.readouterr().out
     assert main(["evaluate", "--bundle", "/nonexistent/bundle"]) == 2
     assert "not found" in capsys.readouterr().err
+
+
+def test_development_holdout_never_scores_test_rows():
+    """holdout=development scores a share of each split's TRAINING rows; its test rows stay unused
+    (the protocol by which settings are chosen, docs/evaluation_log.md)."""
+    from closure_nn.training.evaluate import _split_indices, _test_splits, load_lab
+
+    lab = load_lab(load_config("evaluate", []).lab)
+    test = _test_splits(load_config("evaluate", []), lab)
+    dev = _split_indices(load_config("evaluate", ["holdout=development"]), lab)
+    for name, (tr, te, _) in test.items():
+        fit, rows, info = dev[name]
+        assert info["holdout"] == "development" and info["n_test_unused"] == len(te)
+        assert not set(rows) & set(te) and not set(fit) & set(te) and not set(fit) & set(rows)
+        assert set(fit) | set(rows) == set(tr)
+        assert abs(len(rows) / len(tr) - 0.25) < 0.01
+    with pytest.raises(InputError):
+        _split_indices(load_config("evaluate", ["holdout=validation"]), lab)

@@ -151,8 +151,9 @@ class _StopAt:
 
 
 def test_resume_after_interruption_gives_the_same_final_metrics(tables):
+    # with the cosine schedule, so the scheduler state must come back from the checkpoint too
     common = [f"data.train={tables['lab']}", f"run_root={tables['root']}", *TINY, "trainer.max_epochs=6",
-              "trainer.patience=0"]
+              "trainer.patience=0", "trainer.lr_schedule=cosine"]
     full = train(load_config("train", common + ["run_name=full"]))
     with pytest.raises(_Interrupt):
         train(load_config("train", common + ["run_name=cut"]), callbacks=[_StopAt(3)])
@@ -164,6 +165,28 @@ def test_resume_after_interruption_gives_the_same_final_metrics(tables):
         for k in ("holdup_rmse", "pgrad_rel_rmse"):
             assert resumed[part][k] == pytest.approx(full[part][k], rel=1e-9, abs=1e-12)
     assert resumed["best_val_loss"] == pytest.approx(full["best_val_loss"], rel=1e-9)
+
+
+def test_cosine_schedule_decays_to_the_final_learning_rate(tables):
+    """Cosine annealing (Loshchilov & Hutter 2017, eq. 5): lr_t = lr_min + (lr - lr_min)(1 + cos(pi t / T)) / 2."""
+    import lightning as L
+
+    seen: list[float] = []
+
+    class Record(L.Callback):
+        def on_train_epoch_start(self, trainer, pl_module):
+            seen.append(trainer.optimizers[0].param_groups[0]["lr"])
+
+    T, lr, final = 4, 1e-2, 0.1
+    train(load_config("train", [f"data.train={tables['lab']}", f"run_root={tables['root']}", *TINY, "run_name=cos",
+                                f"trainer.max_epochs={T}", "trainer.patience=0", "trainer.lr_schedule=cosine",
+                                f"trainer.lr_final_factor={final}"]), callbacks=[Record()])
+    lo = lr * final
+    want = [lo + (lr - lo) * (1 + math.cos(math.pi * t / T)) / 2 for t in range(T)]
+    assert seen == pytest.approx(want, rel=1e-12)
+    with pytest.raises(ValueError, match="lr_schedule"):
+        train(load_config("train", [f"data.train={tables['lab']}", f"run_root={tables['root']}", *TINY,
+                                    "run_name=bad", "trainer.lr_schedule=steps"]))
 
 
 def test_ensemble_members_give_a_spread(tables):

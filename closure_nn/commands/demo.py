@@ -60,7 +60,9 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     t0 = _stage("1/4 synthetic set, pre-training, fine-tuning and held-out evaluation")
     ecfg = load_config("evaluate", list(cfg.evaluate))
     lab = load_lab(ecfg.lab)
-    ev = run_evaluation(ecfg, lab, None, run_dir / "evaluation")
+    from ..report.training_plots import evaluation_figures
+
+    ev = run_evaluation(ecfg, lab, None, run_dir / "evaluation", figures=evaluation_figures)
     rnd = ev["splits"]["random"]
     learned_bundle = rnd["finetune"]["bundle"]
     seconds["evaluation"] = time.perf_counter() - t0

@@ -33,7 +33,8 @@ def summary_lines(report: dict) -> list[str]:
     lines = []
     for split, r in report["splits"].items():
         held = f" (held out {r['by']} = {', '.join(r['test_groups'])})" if r["kind"] == "grouped" else ""
-        lines.append(f"{split} split{held}: {r['n_train']} training rows, {r['n_test']} held-out rows "
+        scored = "development rows (from the training rows)" if r.get("holdout") == "development" else "held-out rows"
+        lines.append(f"{split} split{held}: {r['n_train']} training rows, {r['n_test']} {scored} "
                      f"({r['n_test_corrupted']} corrupted, left out of these scores)")
         for model, m in r["scores"]["clean"].items():
             lines.append(f"  {model:<10s} holdup MAE {_fmt(m['holdup_mae'], '.4f')}  MAPE {_fmt(m['holdup_mape'], '5.1f')} %  "
@@ -57,7 +58,9 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
         raise FileNotFoundError(2, "No such bundle", args.bundle)
     lab = load_lab(args.lab or cfg.lab)
     run_dir = make_run_dir("evaluate", root=cfg.run_root, name=cfg.run_name)
-    report = run_evaluation(cfg, lab, args.bundle, run_dir)
+    from ..report.training_plots import evaluation_figures
+
+    report = run_evaluation(cfg, lab, args.bundle, run_dir, figures=evaluation_figures)
     print("\n".join(summary_lines(report)))
     print(f"run folder: {run_dir} ({report['seconds']['total']:.0f} s)")
     print(CAUTION)

@@ -157,7 +157,9 @@ def evaluation_figures(report: dict, keep: dict, run: str | Path) -> list[str]:
     for name, k in keep.items():
         s = report["splits"][name]
         what = "random split" if s["kind"] == "random" else f"grouped split, held out {s['by']} = {', '.join(s['test_groups'])}"
-        how = (f"Held-out lab rows ({what}; {s['n_test']} rows, {corr}); closures solved with solve_points, "
+        rows = ("Development rows (a seeded share of the split's training rows; the test rows unused; "
+                if s.get("holdout") == "development" else "Held-out lab rows (")
+        how = (f"{rows}{what}; {s['n_test']} rows, {corr}); closures solved with solve_points, "
                f"black box trained on the same {s['n_train']} rows with the same epoch budget.")
         out.append(str(parity_figure(k["_test"], k["_preds"], k["_rows"]["clean"], run / f"parity_{name}.png",
                                      f"Parity, {what}", how)))
@@ -168,7 +170,7 @@ def evaluation_figures(report: dict, keep: dict, run: str | Path) -> list[str]:
     runs.update({f"fine-tune {n}": s["finetune"]["run_dir"] for n, s in report["splits"].items()})
     out.append(str(curves_figure(runs, run / "training_curves.png",
                                  "From the Lightning CSV logs of each run; validation rows are a seeded share of that run's training rows.")))
-    if "kfold" in report:
+    if "folds" in report.get("kfold", {}):
         kf = report["kfold"]
         out.append(str(kfold_figure(kf["folds"], run / "kfold.png",
                                     f"{kf['k']} random folds of the lab rows, each fine-tuned from the same pre-trained bundle with "

@@ -42,6 +42,7 @@ import math
 import time
 import warnings
 from pathlib import Path
+from typing import Callable
 
 import numpy as np
 import pandas as pd
@@ -291,7 +292,38 @@ def evaluate_split(cfg: DictConfig, name: str, lab: pd.DataFrame, train_idx: np.
     return out
 
 
+def development_rows(train_idx: np.ndarray, fraction: float, seed: int) -> tuple[np.ndarray, np.ndarray]:
+    """Cut a split's TRAINING rows into (fit rows, development rows) at random (seeded).
+
+    Settings are compared on the development rows so that the split's held-out rows stay unseen
+    until the final run (``holdout: development`` in conf/evaluate.yaml).
+
+    >>> fit, dev = development_rows(np.arange(10, 20), 0.3, seed=0)
+    >>> len(fit), len(dev), bool(set(fit) | set(dev) == set(range(10, 20)))
+    (7, 3, True)
+    """
+    fit, dev = random_split(len(train_idx), (1.0 - fraction, fraction), seed=seed)
+    return np.asarray(train_idx)[fit], np.asarray(train_idx)[dev]
+
+
 def _split_indices(cfg: DictConfig, lab: pd.DataFrame) -> dict[str, tuple[np.ndarray, np.ndarray, dict]]:
+    """(training rows, scored rows, description) per enabled split. With ``holdout: development``
+    the scored rows are a seeded share of the split's training rows and its test rows are unused."""
+    out = _test_splits(cfg, lab)
+    if cfg.holdout == "test":
+        return out
+    if cfg.holdout != "development":
+        raise InputError(f"evaluate: holdout = {cfg.holdout!r}; expected test or development")
+    d = cfg.development
+    dev = {}
+    for name, (tr, te, info) in out.items():
+        fit, rows = development_rows(tr, float(d.fraction), int(d.seed))
+        dev[name] = (fit, rows, {**info, "holdout": "development", "development_fraction": float(d.fraction),
+                                 "development_seed": int(d.seed), "n_test_unused": int(len(te))})
+    return dev
+
+
+def _test_splits(cfg: DictConfig, lab: pd.DataFrame) -> dict[str, tuple[np.ndarray, np.ndarray, dict]]:
     sp = cfg.splits
     out = {}
     if sp.random.enabled:
@@ -320,7 +352,8 @@ def _flat_rows(report: dict) -> list[tuple]:
     return rows
 
 
-def run_evaluation(cfg: DictConfig, lab_df: pd.DataFrame, bundle_dir: str | Path | None, run_dir: str | Path) -> dict:
+def run_evaluation(cfg: DictConfig, lab_df: pd.DataFrame, bundle_dir: str | Path | None, run_dir: str | Path,
+                   figures: Callable[[dict, dict, Path], list[str]] | None = None) -> dict:
     """The evaluation report (module docstring) written into ``run_dir``; returns it as a dict.
 
     ``cfg``: conf/evaluate.yaml composed (its ``experiment`` group holds the training settings).
@@ -328,7 +361,10 @@ def run_evaluation(cfg: DictConfig, lab_df: pd.DataFrame, bundle_dir: str | Path
     bundle every split is fine-tuned from (None: pre-train here on the experiment's synthetic
     set). Files: ``evaluation.json``, ``evaluation.csv`` (split, subset, model, metric, value),
     ``predictions_<split>.csv``, ``parity_<split>.png``, ``residuals_<split>.png``,
-    ``training_curves.png``, ``kfold.png``, ``CAUTION.txt``.
+    ``training_curves.png``, ``kfold.png``, ``CAUTION.txt``. ``figures``: the figure writer
+    (``closure_nn.report.training_plots.evaluation_figures``, passed in by the commands so that
+    training never imports the report layer), called with (report, kept predictions, run folder)
+    when ``cfg.plots``.
     """
     e = _exp(cfg)
     run = Path(run_dir)
@@ -349,6 +385,7 @@ def run_evaluation(cfg: DictConfig, lab_df: pd.DataFrame, bundle_dir: str | Path
     report: dict = {"caution": CAUTION, "lab": lab_df.attrs.get("path", ""), "n_lab_rows": int(len(lab_df)),
                     "pretrained_bundle": str(bundle_dir), "corrupted_rows": int(corrupt.sum()),
                     "corrupted_rows_in_training": not bool(e.exclude_corrupted),
+                    "holdout": str(cfg.holdout),
                     "scoring": OmegaConf.to_container(cfg.scoring, resolve=True),
                     "how_measured": ("every model on the same held-out lab rows; closures through solve_points "
                                      f"(pattern predicted, non-separated rows by the published models); subset 'clean' "
@@ -364,7 +401,9 @@ def run_evaluation(cfg: DictConfig, lab_df: pd.DataFrame, bundle_dir: str | Path
         timing[f"split_{name}"] = time.perf_counter() - t0
         keep[name] = {k: r.pop(k) for k in ("_preds", "_test", "_res", "_rows")}
         report["splits"][name] = {**info, **r}
-    if int(cfg.kfold.k) >= 2:
+    if int(cfg.kfold.k) >= 2 and cfg.holdout == "development":
+        report["kfold"] = {"skipped": "holdout: development (k-fold would score rows of the test splits)"}
+    elif int(cfg.kfold.k) >= 2:
         t0 = time.perf_counter()
         folds: dict[str, list] = {}
         for i, (tr, va) in enumerate(kfold_split(len(lab_df), int(cfg.kfold.k), seed=int(cfg.kfold.seed))):
@@ -380,9 +419,7 @@ def run_evaluation(cfg: DictConfig, lab_df: pd.DataFrame, bundle_dir: str | Path
         w = csv.writer(fh)
         w.writerow(["split", "subset", "model", "metric", "value"])
         w.writerows(_flat_rows(report))
-    if cfg.plots:
-        from ..report import training_plots as tp  # matplotlib lives in report/; imported only here
-
-        report["figures"] = tp.evaluation_figures(report, keep, run)
+    if cfg.plots and figures is not None:
+        report["figures"] = figures(report, keep, run)
         write_json(run / "evaluation.json", report)
     return report

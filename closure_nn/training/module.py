@@ -11,6 +11,9 @@ from .loss import TERMS, ClosureLoss, LossSettings
 from .metrics import accuracy
 from .tables import n_rows
 
+#: learning-rate schedules of ``trainer.lr_schedule``
+LR_SCHEDULES = ("constant", "cosine")
+
 
 class ClosureTask(L.LightningModule):
     """Training/validation steps, logging of every loss term and the accuracy metrics.
@@ -20,11 +23,15 @@ class ClosureTask(L.LightningModule):
     """
 
     def __init__(self, closure: NeuralClosure, loss: LossSettings, lr: float, weight_decay: float = 0.0,
-                 select: str = "thinnest") -> None:
+                 select: str = "thinnest", lr_schedule: str = "constant", lr_final_factor: float = 0.1,
+                 max_epochs: int = 1) -> None:
         super().__init__()
+        if lr_schedule not in LR_SCHEDULES:
+            raise ValueError(f"trainer.lr_schedule = {lr_schedule!r}; expected one of {', '.join(LR_SCHEDULES)}")
         self.closure = closure
         self.loss = ClosureLoss(loss)
         self.lr, self.weight_decay, self.select = float(lr), float(weight_decay), select
+        self.lr_schedule, self.lr_final_factor, self.max_epochs = lr_schedule, float(lr_final_factor), int(max_epochs)
 
     def _log_terms(self, prefix: str, total: torch.Tensor, terms: dict, n: int) -> None:
         kw = dict(batch_size=n, sync_dist=True, on_epoch=True, on_step=False)
@@ -51,7 +58,14 @@ class ClosureTask(L.LightningModule):
 
     def configure_optimizers(self):
         params = [p for p in self.closure.parameters() if p.requires_grad]
-        return torch.optim.Adam(params, lr=self.lr, weight_decay=self.weight_decay)
+        opt = torch.optim.Adam(params, lr=self.lr, weight_decay=self.weight_decay)
+        if self.lr_schedule == "constant":
+            return opt
+        # cosine decay per epoch from lr to lr * lr_final_factor at max_epochs (Loshchilov & Hutter
+        # 2017, SGDR, eq. 5 without restarts); its state is in the checkpoints, so resume continues it
+        sched = torch.optim.lr_scheduler.CosineAnnealingLR(opt, T_max=max(self.max_epochs, 1),
+                                                           eta_min=self.lr * self.lr_final_factor)
+        return {"optimizer": opt, "lr_scheduler": {"scheduler": sched, "interval": "epoch"}}
 
 
 class EpochTimer(L.Callback):

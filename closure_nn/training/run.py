@@ -124,7 +124,8 @@ def _fit_one(cfg: DictConfig, train_df: pd.DataFrame, val_t: dict, replay_t: dic
     t = cfg.trainer
     lr = float(t.lr) * (1.0 if cfg.stage == "pretrain" else float(cfg.finetune.lr_factor))
     loss = LossSettings(**OmegaConf.to_container(cfg.loss, resolve=True))
-    task = ClosureTask(closure, loss, lr=lr, weight_decay=t.weight_decay, select=cfg.loss.select)
+    task = ClosureTask(closure, loss, lr=lr, weight_decay=t.weight_decay, select=cfg.loss.select,
+                       lr_schedule=t.lr_schedule, lr_final_factor=t.lr_final_factor, max_epochs=t.max_epochs)
     from .datamodule import TableDataModule
 
     dm = TableDataModule(train_t, val_t, batch_size=t.batch_size, seed=seed)
