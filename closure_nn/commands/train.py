@@ -5,6 +5,10 @@ Examples (key=value arguments are Hydra overrides)::
     closure-nn train data.train=synthetic.csv
     closure-nn train stage=finetune init_bundle=runs/train-.../bundle data.train=lab.csv
     closure-nn train resume=runs/train-.../checkpoints/last.ckpt
+    closure-nn train --sweep 'model.hidden=[16,16],[32,32]' seed=0,1 data.train=synthetic.csv
+
+``--sweep`` runs Hydra's multirun (closure_nn.training.sweep): one job per combination of the
+comma-separated values, each in its own folder under <run_root>/sweep-<time>/, and a summary table.
 """
 from __future__ import annotations
 
@@ -17,7 +21,11 @@ from ..physics.checks import InputError
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--show-config", action="store_true", help="print the composed config and exit")
+    p.add_argument("--show-config", action="store_true",
+                   help="print the composed config (with --sweep: the list of jobs) and exit")
+    p.add_argument("--sweep", "-m", "--multirun", action="store_true",
+                   help="Hydra multirun: comma-separated values (seed=0,1) give one job per combination; "
+                        "quote list values ('model.hidden=[16,16],[32,32]')")
 
 
 def _config(overrides: list[str]):
@@ -38,9 +46,30 @@ def _config(overrides: list[str]):
     return cfg
 
 
+def _sweep(args: argparse.Namespace, overrides: list[str]) -> int:
+    """Plan the jobs, check every job's config, then hand the overrides to the Hydra app."""
+    from ..training.sweep import check_jobs, plan, run_sweep
+
+    jobs = plan(overrides)
+    if jobs is None:
+        print("sweep: the jobs are chosen by the configured sweeper")
+    elif args.show_config:
+        for n, job in enumerate(jobs):
+            print(f"#{n}: {' '.join(job)}")
+        return 0
+    else:
+        check_jobs(jobs)
+        print(f"sweep: {len(jobs)} job{'s' if len(jobs) != 1 else ''}")
+    if args.show_config:
+        return 0
+    return run_sweep(overrides)
+
+
 def run(args: argparse.Namespace, overrides: list[str]) -> int:
     from omegaconf import OmegaConf
 
+    if args.sweep:
+        return _sweep(args, overrides)
     cfg = _config(overrides)
     if args.show_config:
         print(OmegaConf.to_yaml(cfg))
