@@ -129,7 +129,7 @@ def tiny_report(tmp_path_factory):
     run = tmp_path_factory.mktemp("evaluate")
     ov = ["experiment.synth.n=300", "experiment.train.pretrain=['trainer.max_epochs=1','trainer.batch_size=256']",
           "experiment.train.finetune=['trainer.max_epochs=1','trainer.batch_size=256']", "kfold.k=2",
-          "kfold.overrides=['trainer.max_epochs=1']", "blackbox.hidden=[8]"]
+          "kfold.overrides=['trainer.max_epochs=1']", "blackbox.hidden=[8]", "processes=2"]  # splits and folds on 2 processes
     cfg = load_config("evaluate", ov)
     lab = load_lab(cfg.lab)
     rng = np.random.default_rng(0)

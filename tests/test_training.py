@@ -199,6 +199,15 @@ def test_ensemble_members_give_a_spread(tables):
     assert m["ensemble"]["val_holdup_std_mean"] > 0
     pred = ens.predict(table_conditions(read_table(tables["heldout"])))
     assert bool((pred.holdup_std > 0).all()) and bool(pred.found.all())
+    # the same members trained side by side in two spawned processes (seeded alike)
+    par = train(load_config("train", [f"data.train={tables['lab']}", f"run_root={tables['root']}", *TINY,
+                                      "trainer.max_epochs=4", "ensemble.members=2", "ensemble.bootstrap=true",
+                                      "ensemble.processes=2"]))
+    assert [mm["seed"] for mm in par["members"]] == [0, 1]
+    for a, b in zip(m["members"], par["members"]):
+        assert b["val"]["holdup_rmse"] == pytest.approx(a["val"]["holdup_rmse"], rel=1e-12)
+    pp = load_bundle(par["bundle"]).predict(table_conditions(read_table(tables["heldout"])))
+    assert torch.allclose(pp.holdup, pred.holdup, rtol=1e-12, atol=0)
 
 
 @pytest.mark.ddp

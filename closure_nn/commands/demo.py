@@ -76,7 +76,8 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
         rows = lab.iloc[tr]
         rows = rows[~corrupted_mask(rows, ecfg.experiment.corruptions)]
         fm = finetune(ecfg, ev["pretrained_bundle"], rows, run_dir / "ensemble", "members",
-                      [f"ensemble.members={int(cfg.ensemble_members)}", "ensemble.bootstrap=true"])
+                      [f"ensemble.members={int(cfg.ensemble_members)}", "ensemble.bootstrap=true",
+                       f"ensemble.processes={int(cfg.ensemble_processes)}"])
         members_dir = fm["bundle"]
         seconds["ensemble"] = time.perf_counter() - t0
 

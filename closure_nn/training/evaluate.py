@@ -306,6 +306,23 @@ def development_rows(train_idx: np.ndarray, fraction: float, seed: int) -> tuple
     return np.asarray(train_idx)[fit], np.asarray(train_idx)[dev]
 
 
+def _split_worker(args: tuple) -> dict:
+    torch.set_num_threads(int(args[0].num_threads))
+    return evaluate_split(*args)
+
+
+def _map_splits(jobs: list[tuple], processes: int) -> list[dict]:
+    """:func:`evaluate_split` for every argument tuple, in order; with ``processes`` > 1 on that many
+    spawned CPU processes (each split is seeded on its own, so the results are the same)."""
+    if processes <= 1 or len(jobs) <= 1:
+        return [evaluate_split(*a) for a in jobs]
+    import multiprocessing as mp
+    from concurrent.futures import ProcessPoolExecutor
+
+    with ProcessPoolExecutor(max_workers=min(processes, len(jobs)), mp_context=mp.get_context("spawn")) as pool:
+        return list(pool.map(_split_worker, jobs))
+
+
 def _split_indices(cfg: DictConfig, lab: pd.DataFrame) -> dict[str, tuple[np.ndarray, np.ndarray, dict]]:
     """(training rows, scored rows, description) per enabled split. With ``holdout: development``
     the scored rows are a seeded share of the split's training rows and its test rows are unused."""
@@ -395,10 +412,13 @@ def run_evaluation(cfg: DictConfig, lab_df: pd.DataFrame, bundle_dir: str | Path
                                         "the baseline wall correlation), not by the data"),
                     "splits": {}}
     keep = {}
-    for name, (tr, te, info) in _split_indices(cfg, lab_df).items():
-        t0 = time.perf_counter()
-        r = evaluate_split(cfg, name, lab_df, tr, te, corrupt, str(bundle_dir), run)
-        timing[f"split_{name}"] = time.perf_counter() - t0
+    n_proc = int(cfg.processes)
+    splits = _split_indices(cfg, lab_df)
+    t0 = time.perf_counter()
+    results = _map_splits([(cfg, name, lab_df, tr, te, corrupt, str(bundle_dir), run) for name, (tr, te, _) in splits.items()],
+                          n_proc)
+    timing["splits"] = time.perf_counter() - t0
+    for (name, (_, _, info)), r in zip(splits.items(), results):
         keep[name] = {k: r.pop(k) for k in ("_preds", "_test", "_res", "_rows")}
         report["splits"][name] = {**info, **r}
     if int(cfg.kfold.k) >= 2 and cfg.holdout == "development":
@@ -406,9 +426,9 @@ def run_evaluation(cfg: DictConfig, lab_df: pd.DataFrame, bundle_dir: str | Path
     elif int(cfg.kfold.k) >= 2:
         t0 = time.perf_counter()
         folds: dict[str, list] = {}
-        for i, (tr, va) in enumerate(kfold_split(len(lab_df), int(cfg.kfold.k), seed=int(cfg.kfold.seed))):
-            r = evaluate_split(cfg, f"fold{i}", lab_df, tr, va, corrupt, str(bundle_dir), run / "kfold",
-                               tuple(cfg.kfold.overrides), keep=False)
+        jobs = [(cfg, f"fold{i}", lab_df, tr, va, corrupt, str(bundle_dir), run / "kfold", tuple(cfg.kfold.overrides), False)
+                for i, (tr, va) in enumerate(kfold_split(len(lab_df), int(cfg.kfold.k), seed=int(cfg.kfold.seed)))]
+        for r in _map_splits(jobs, n_proc):
             for model, m in r["scores"]["clean"].items():
                 folds.setdefault(model, []).append(m)
         report["kfold"] = {"k": int(cfg.kfold.k), "overrides": list(cfg.kfold.overrides), "subset": "clean", "folds": folds}
