@@ -159,3 +159,21 @@ def test_ensemble_directory_round_trip_and_spread(tmp_path):
     (p / "ensemble.json").write_text("[]")
     with pytest.raises(BundleError, match="corrupted ensemble"):
         load_ensemble(p)
+
+
+def test_combined_ensemble_keeps_every_member_unchanged(tmp_path):
+    """combine_ensembles: a bundle + a 2-member ensemble -> 3 members, each with the same factors
+    (byte copies, checksums verified on load)."""
+    from closure_nn.closures.ensemble import combine_ensembles
+
+    one, two = trained_like(seed=0), [trained_like(seed=i) for i in (1, 2)]
+    b = save_bundle(one, tmp_path / "single")
+    e = save_ensemble(two, tmp_path / "pair")
+    ens = load_bundle(combine_ensembles([b, e], tmp_path / "band"))
+    assert isinstance(ens, ClosureEnsemble) and len(ens) == 3
+    s = states()
+    with torch.no_grad():
+        for got, want in zip(ens.members, [one, *two]):
+            assert torch.equal(got(s).f_i, want(s).f_i) and torch.equal(got(s).f_wg, want(s).f_wg)
+    with pytest.raises(BundleError):
+        combine_ensembles([tmp_path / "missing"], tmp_path / "bad")

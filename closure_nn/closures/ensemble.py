@@ -141,3 +141,32 @@ def load_ensemble(path: str | os.PathLike) -> ClosureEnsemble:
     ens = ClosureEnsemble([load_bundle(p / n) for n in names])
     ens.bundle_metadata = meta
     return ens
+
+
+def member_bundles(path: str | os.PathLike) -> list[Path]:
+    """The bundle directories behind ``path``: its members if it is an ensemble, else ``[path]``."""
+    p = Path(path)
+    if (p / ENSEMBLE_FILE).exists():
+        load_ensemble(p)  # checks the description and every member
+        return [p / n for n in json.loads((p / ENSEMBLE_FILE).read_text())["members"]]
+    load_bundle(p)
+    return [p]
+
+
+def combine_ensembles(parts: list[str | os.PathLike], path: str | os.PathLike, metrics: dict | None = None) -> Path:
+    """One ensemble directory at ``path`` from bundles and/or ensembles ``parts`` (in order): each
+    member bundle is copied unchanged to ``member_<i>/``, so checksums and metadata carry over.
+    E.g. a closure already fine-tuned plus extra bootstrap members, for an uncertainty band."""
+    import shutil
+
+    p = Path(path)
+    p.mkdir(parents=True, exist_ok=True)
+    names = []
+    for src in (b for part in parts for b in member_bundles(part)):
+        name = f"member_{len(names)}"
+        shutil.copytree(src, p / name, dirs_exist_ok=True)
+        names.append(name)
+    (p / ENSEMBLE_FILE).write_text(json.dumps({"format": ENSEMBLE_FORMAT, "format_version": 1, "members": names,
+                                               "metrics": metrics or {}, "combined_from": [str(x) for x in parts]},
+                                              indent=2) + "\n")
+    return p

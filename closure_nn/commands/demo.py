@@ -6,7 +6,9 @@ One run folder ``runs/demo-<time>/`` holds every stage:
    on the lab campaign's training rows; held-out scores of baseline, learned closure and a
    black-box regressor on a random and a grouped (100 mm section left out) split
    (:func:`closure_nn.training.evaluate.run_evaluation`);
-2. ``ensemble/``: bootstrap members fine-tuned from the same pre-trained bundle, for the band;
+2. ``ensemble/``: the band's ensemble, ``ensemble/band``: the evaluated fine-tuned closure plus
+   ``ensemble_members`` - 1 bootstrap members fine-tuned from the same pre-trained bundle on the same
+   rows (trained side by side on ``ensemble_processes`` CPU processes);
 3. ``audit/``: consistency audit of the lab campaign against the learned closure, scored against
    the documented corrupted rows, and the learned closure's health (`closure-nn audit`);
 4. ``line/``: the invented Karvel Ridge tie-back marched with the baseline, the learned closure
@@ -45,6 +47,7 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
 
     from ..data.splits import random_split
     from ..run_folder import make_run_dir, write_json
+    from ..closures.ensemble import combine_ensembles
     from ..training.evaluate import corrupted_mask, finetune, load_lab, run_evaluation
     from . import audit as audit_cmd
     from . import line as line_cmd
@@ -67,18 +70,21 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     learned_bundle = rnd["finetune"]["bundle"]
     seconds["evaluation"] = time.perf_counter() - t0
 
-    # 2. ensemble members for the band, fine-tuned on the same training rows as the learned closure
+    # 2. ensemble for the band: the evaluated closure plus N - 1 bootstrap members (seeds 1 .. N - 1),
+    #    fine-tuned from the same pre-trained bundle on the same training rows
     members_dir = None
-    if int(cfg.ensemble_members) > 1:
-        t0 = _stage(f"2/4 ensemble of {int(cfg.ensemble_members)} bootstrap members")
+    n = int(cfg.ensemble_members)
+    if n > 1:
+        t0 = _stage(f"2/4 ensemble of {n}: the fine-tuned closure + {n - 1} bootstrap member(s)")
         sp = ecfg.splits.random
         tr, _ = random_split(len(lab), (1 - float(sp.test_fraction), float(sp.test_fraction)), seed=int(sp.seed))
         rows = lab.iloc[tr]
         rows = rows[~corrupted_mask(rows, ecfg.experiment.corruptions)]
+        seed = int(ecfg.experiment.seed) + 1
         fm = finetune(ecfg, ev["pretrained_bundle"], rows, run_dir / "ensemble", "members",
-                      [f"ensemble.members={int(cfg.ensemble_members)}", "ensemble.bootstrap=true",
+                      [f"ensemble.members={n - 1}", "ensemble.bootstrap=true", f"seed={seed}",
                        f"ensemble.processes={int(cfg.ensemble_processes)}"])
-        members_dir = fm["bundle"]
+        members_dir = str(combine_ensembles([learned_bundle, fm["bundle"]], run_dir / "ensemble" / "band"))
         seconds["ensemble"] = time.perf_counter() - t0
 
     # 3. consistency audit of the lab campaign against the learned closure
