@@ -11,8 +11,9 @@
    conf/experiment/demo.yaml). Goal <= 5 min on 2 cores.
 
 Epoch times are the training part of one epoch measured by the EpochTimer callback
-(``seconds_per_epoch`` of the metrics; no validation). Wall times by ``time.perf_counter``. Prints
-one JSON line per measurement plus the machine.
+(``seconds_per_epoch`` of the metrics; it includes the end-of-epoch validation of the 1 %
+validation rows). Wall times by ``time.perf_counter``. Prints one JSON line per measurement plus
+the machine, with the 1-minute load average after each epoch measurement (the cores may be shared).
 """
 from __future__ import annotations
 
@@ -53,7 +54,8 @@ def epoch_time(table: Path, root: Path, solver: bool, threads: int) -> dict:
                                 "closure.wall=churchill", "data.val_fraction=0.01", "loss.weights.pattern=0.0", *w])
     m = train(cfg)
     return {"what": "epoch, solver-in-the-loop misfit" if solver else "epoch, residual-only loss",
-            "seconds_per_epoch": m["seconds_per_epoch"], "rows": None}
+            "seconds_per_epoch": m["seconds_per_epoch"], "rows": None,
+            "load_1min_after": os.getloadavg()[0] if hasattr(os, "getloadavg") else float("nan")}
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -25,6 +25,7 @@ travels with the weights; :meth:`NeuralClosure.in_domain` flags states outside i
 """
 from __future__ import annotations
 
+from dataclasses import dataclass
 from typing import Sequence
 
 import torch
@@ -40,6 +41,27 @@ MODES = ("correction", "direct")
 ACTIVATIONS: dict[str, type[nn.Module]] = {"silu": nn.SiLU, "tanh": nn.Tanh, "softplus": nn.Softplus, "gelu": nn.GELU}
 N_OUT = 3  # f_WL, f_WG, f_i
 OUTPUT_NAMES = ("f_wl", "f_wg", "f_i")
+
+
+@dataclass(frozen=True)
+class NeuralEvaluation:
+    """One evaluation of a :class:`NeuralClosure` at a batch of states, with the intermediates that
+    the training loss reuses (so it evaluates the features, the network and the baseline once).
+
+    Shapes: ``factors``, ``base`` and ``g`` are ``(*batch, 3)`` in the order f_WL, f_WG, f_i;
+    ``inputs`` holds the standardised features ``(*batch, F)`` once per branch (one shared tensor,
+    or one gradient leaf per branch with ``input_grad=True``) and ``g`` is computed from them.
+    """
+
+    factors: torch.Tensor  #: Fanning factors f_k [-]
+    base: torch.Tensor | None  #: baseline factors f_k,base [-] (correction mode), else None
+    g: torch.Tensor  #: the network's part of ln f [-] (see :meth:`NeuralClosure.learned_log_factor`)
+    inputs: tuple[torch.Tensor, ...]  #: standardised features z [-], one entry per branch
+
+    def friction(self) -> FrictionFactors:
+        """``factors`` as :class:`~closure_nn.physics.momentum.FrictionFactors` (views, ``(*batch)`` each)."""
+        f = self.factors
+        return FrictionFactors(f_wl=f[..., 0], f_wg=f[..., 1], f_i=f[..., 2])
 
 
 def domain_mask(z: torch.Tensor, lo: torch.Tensor, hi: torch.Tensor, points: torch.Tensor,
@@ -153,6 +175,9 @@ class NeuralClosure(Closure):
                     raise ValueError(f"inputs.{k}: unknown feature(s) {', '.join(bad)}; known: {', '.join(FEATURE_NAMES)}")
                 branches.append(([FEATURE_NAMES.index(n) for n in names], [j]))
         self.branch_inputs = [b[0] for b in branches]
+        # per branch: None where it reads every feature in order (no copy), else an index tensor
+        self._branch_index = [None if idx == list(range(n_in)) else torch.tensor(idx, dtype=torch.int64)
+                              for idx in self.branch_inputs]
         self.branch_outputs = [b[1] for b in branches]
         self.branches = nn.ModuleList()
         for idx, outs in branches:
@@ -216,13 +241,22 @@ class NeuralClosure(Closure):
         """Features ``(*batch, F)`` -> standardised ``(*batch, F)``."""
         return (x - self.feature_mean) / self.feature_std
 
-    def learned_log_factor(self, z: torch.Tensor) -> torch.Tensor:
+    def learned_log_factor(self, z: torch.Tensor | Sequence[torch.Tensor]) -> torch.Tensor:
         """The network's part of ln f, ``(*batch, 3)``, from standardised features ``z (*batch, F)``.
 
         Correction mode: :math:`b\\tanh(o)`, the log of f / f_base. Direct mode:
         :math:`s\\tanh(o/s)`, the log of f / f_ref.
+
+        ``z`` may also be a sequence of one features tensor per branch (``len(self.branches)``,
+        each ``(*batch, F)``), branch ``b`` reading only ``z[b]``; with one gradient leaf per
+        branch a single backward pass then gives every branch's input gradient separately (the
+        smoothness penalty of :mod:`closure_nn.training.loss`).
         """
-        parts = [branch(z[..., idx]) for branch, idx in zip(self.branches, self.branch_inputs)]
+        zs = (z,) * len(self.branches) if isinstance(z, torch.Tensor) else tuple(z)
+        if len(zs) != len(self.branches):
+            raise ValueError(f"learned_log_factor: {len(zs)} feature tensors for {len(self.branches)} branches")
+        parts = [branch(zb if ix is None else zb.index_select(-1, ix))
+                 for branch, ix, zb in zip(self.branches, self._branch_index, zs)]
         out = parts[0] if len(parts) == 1 else torch.cat(parts, dim=-1)  # branches ordered by output
         if out.shape[-1] != N_OUT:  # factors not learned keep a zero log-correction
             full = torch.zeros(*out.shape[:-1], N_OUT, dtype=out.dtype)
@@ -236,14 +270,33 @@ class NeuralClosure(Closure):
         """ln of (f_WL, f_WG, f_i), shape ``(*batch, 3)``."""
         return torch.log(torch.stack(tuple(self(state)), dim=-1))
 
-    def forward(self, state: LocalState) -> FrictionFactors:
-        g = self.learned_log_factor(self.standardise(closure_features(state)))
+    def evaluate(self, state: LocalState, input_grad: bool = False) -> NeuralEvaluation:
+        """The factors at ``state`` with their intermediates (:class:`NeuralEvaluation`).
+
+        ``input_grad``: the standardised features enter the network as one gradient leaf per
+        branch (``inputs``, detached from the state), so that ``g`` can be differentiated with
+        respect to the features. ``factors`` keep their gradient with respect to the state all
+        the same: for a state that carries one, they come from a second pass on the attached
+        features.
+        """
+        z = self.standardise(closure_features(state))
+        if input_grad:
+            zs = tuple(z.detach().requires_grad_(True) for _ in self.branches)
+        else:
+            zs = (z,) * len(self.branches)
+        g = self.learned_log_factor(zs)
+        g_f = self.learned_log_factor(z) if input_grad and z.requires_grad else g
+        base = None
         if self.mode == "correction":
             # f_base * exp(g) rather than exp(ln f_base + g): exactly the baseline where g = 0
-            f = torch.stack(tuple(self.baseline(state)), dim=-1) * torch.exp(g)
+            base = torch.stack(tuple(self.baseline(state)), dim=-1)
+            f = base * torch.exp(g_f)
         else:
-            f = torch.exp(self.log_f_ref + g)
-        return FrictionFactors(f_wl=f[..., 0], f_wg=f[..., 1], f_i=f[..., 2])
+            f = torch.exp(self.log_f_ref + g_f)
+        return NeuralEvaluation(factors=f, base=base, g=g, inputs=zs)
+
+    def forward(self, state: LocalState) -> FrictionFactors:
+        return self.evaluate(state).friction()
 
     def in_domain(self, features: torch.Tensor, margin: float = 0.0) -> torch.Tensor:
         """Bool mask ``(*batch)``: raw features ``(*batch, F)`` inside the stored training domain."""

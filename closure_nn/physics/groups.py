@@ -60,8 +60,10 @@ def closure_features(s: LocalState) -> torch.Tensor:
         torch.sin(c.theta),
         torch.full_like(c.D, 1.0 if s.kind == ANNULAR else 0.0),
     ]
-    shape = torch.broadcast_shapes(*(x.shape for x in cols))
-    cols = [torch.broadcast_to(x, shape) for x in cols]
+    shapes = {x.shape for x in cols}
+    if len(shapes) > 1:  # a field given as a scalar or a smaller shape
+        shape = torch.broadcast_shapes(*shapes)
+        cols = [torch.broadcast_to(x, shape) for x in cols]
     return torch.stack(cols, dim=-1)
 
 

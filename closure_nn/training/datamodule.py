@@ -5,28 +5,52 @@ import lightning as L
 import torch
 from torch.utils.data import DataLoader, Dataset, Sampler
 
+from .loss import measured_frac
 from .tables import n_rows
 
 
 class TensorRows(Dataset):
-    """Row ``i`` of a dict of ``(N,)`` tensors; ``__getitems__`` fetches a whole batch at once."""
+    """Row ``i`` of a dict of ``(N,)`` tensors; ``__getitems__`` fetches a whole batch at once.
+
+    The columns are kept as one ``(N, K)`` matrix per dtype, so a batch is one row gather per
+    dtype (row-contiguous memory) instead of one scattered gather per column; the batch values
+    are the columns' own, each a contiguous ``(B,)`` tensor.
+    """
 
     def __init__(self, tensors: dict[str, torch.Tensor]) -> None:
         self.tensors = tensors
+        self._n = n_rows(tensors) if tensors else 0
+        groups: dict[torch.dtype, list[str]] = {}
+        for k, v in tensors.items():
+            groups.setdefault(v.dtype, []).append(k)
+        self._groups = [(keys, torch.stack([tensors[k] for k in keys], dim=1)) for keys in groups.values()]
 
     def __len__(self) -> int:
-        return n_rows(self.tensors)
+        return self._n
 
     def __getitem__(self, i: int) -> dict[str, torch.Tensor]:
         return {k: v[i] for k, v in self.tensors.items()}
 
     def __getitems__(self, idx: list[int]) -> dict[str, torch.Tensor]:
         ix = torch.as_tensor(idx, dtype=torch.int64)
-        return {k: v[ix] for k, v in self.tensors.items()}
+        out: dict[str, torch.Tensor] = {}
+        for keys, m in self._groups:
+            cols = m.index_select(0, ix).T.contiguous()  # (K, B): each column contiguous
+            out.update(zip(keys, cols.unbind(0)))
+        return {k: out[k] for k in self.tensors}  # the caller's key order
 
 
 def _identity(batch):
     return batch
+
+
+def with_measured_frac(t: dict[str, torch.Tensor]) -> dict[str, torch.Tensor]:
+    """``t`` plus the key ``frac_measured`` (:func:`closure_nn.training.loss.measured_frac`): the
+    level at the measured holdup depends on the row alone, so it is computed once per row here
+    rather than in every batch of every epoch."""
+    if not t or n_rows(t) == 0:
+        return dict(t)
+    return {**t, "frac_measured": measured_frac(t)}
 
 
 class EpochSeededSampler(Sampler[int]):
@@ -53,11 +77,12 @@ class EpochSeededSampler(Sampler[int]):
 
 
 class TableDataModule(L.LightningDataModule):
-    """Train and validation tensors (from :func:`closure_nn.training.tables.table_tensors`)."""
+    """Train and validation tensors (from :func:`closure_nn.training.tables.table_tensors`), each
+    with ``frac_measured`` added (:func:`with_measured_frac`)."""
 
     def __init__(self, train: dict[str, torch.Tensor], val: dict[str, torch.Tensor], batch_size: int, seed: int) -> None:
         super().__init__()
-        self.train_t, self.val_t = train, val
+        self.train_t, self.val_t = with_measured_frac(train), with_measured_frac(val)
         self.batch_size, self.seed = int(batch_size), int(seed)
 
     def train_dataloader(self) -> DataLoader:

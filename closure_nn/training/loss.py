@@ -1,11 +1,13 @@
 r"""The physics-regularised training loss of a neural closure (plain torch, no Lightning).
 
-A batch is a dict of ``(B,)`` tensors built by :func:`closure_nn.training.data.table_tensors`:
+A batch is a dict of ``(B,)`` tensors built by :func:`closure_nn.training.tables.table_tensors`:
 the condition fields (:data:`closure_nn.physics.conditions.FIELD_NAMES`), the targets
 ``holdup``, ``pgrad`` (-dp/dx [Pa/m]), their 1-sigma ``holdup_sd``, ``pgrad_sd`` (NaN = not
 measured / not given), the separated configuration ``kind`` (codes of
 :data:`closure_nn.data.features.KIND_CODE`, -1 = not separated flow), the observed ``pattern``
-(codes of :data:`closure_nn.physics.vocabulary.CODE`, -1 = not observed) and a row ``weight``.
+(codes of :data:`closure_nn.physics.vocabulary.CODE`, -1 = not observed) and a row ``weight``;
+optionally ``frac_measured``, the level at the measured holdup (:func:`measured_frac`), which the
+training datamodule computes once per row instead of once per batch.
 
 Terms (each a weighted mean over the rows it applies to; weights in ``conf/loss/*.yaml``):
 
@@ -75,14 +77,14 @@ from dataclasses import dataclass, field
 import torch
 from torch import nn
 
-from ..closures.neural import OUTPUT_NAMES, NeuralClosure
+from ..closures.neural import OUTPUT_NAMES, NeuralClosure, NeuralEvaluation
 from ..data.features import KIND_CODE, KINDS, frac_from_holdup
 from ..physics.conditions import FIELD_NAMES, Conditions
 from ..physics.geometry import STRATIFIED
 from ..physics.groups import closure_features
 from ..physics.holdup_roots import solve_separated
 from ..physics.local_state import LocalState, local_state
-from ..physics.momentum import combined_residual, gas_residual, liquid_residual, shear_stresses
+from ..physics.momentum import FrictionFactors, combined_residual, gas_residual, liquid_residual, shear_stresses
 from ..physics.patterns import THETA_STEEP, kh_gas_velocity
 from ..physics.vocabulary import CODE, DISPERSED_BUBBLE, INTERMITTENT, STRATIFIED_PATTERNS
 from ..physics.vocabulary import ANNULAR as ANNULAR_PATTERN
@@ -146,9 +148,35 @@ def cauchy(r: torch.Tensor, c: float | None) -> torch.Tensor:
 
 
 def batch_conditions(batch: dict[str, torch.Tensor], rows: torch.Tensor | None = None) -> Conditions:
-    """Conditions of the batch rows selected by the bool mask ``rows`` (all rows if None)."""
+    """Conditions of the batch rows selected by ``rows`` (a bool mask or int64 row indices; all
+    rows if None)."""
     cols = {k: batch[k] if rows is None else batch[k][rows] for k in FIELD_NAMES}
     return Conditions(**cols)
+
+
+def measured_state_rows(holdup: torch.Tensor) -> torch.Tensor:
+    """Bool mask ``(B,)`` of rows with a measured separated state: holdup given and 0 < H < 1 (a
+    reading of exactly 0 or 1, clipped by the data reduction, is no separated-flow state)."""
+    return torch.isfinite(holdup) & (holdup > 0) & (holdup < 1)
+
+
+def measured_frac(batch: dict[str, torch.Tensor]) -> torch.Tensor:
+    """h/D (stratified rows) or delta/D (annular rows) [-] at the measured holdup, ``(B,)``, from
+    :func:`~closure_nn.data.features.frac_from_holdup` (no gradient); NaN where a row has no
+    measured separated state (:func:`measured_state_rows`, ``kind`` -1).
+
+    :class:`ClosureLoss` computes it per batch unless the batch carries it as the key
+    ``frac_measured`` (the training datamodule stores it once per row, since it depends on the
+    row alone).
+    """
+    H = batch["holdup"]
+    out = torch.full_like(H, float("nan"))
+    rows = measured_state_rows(H)
+    for kind in KINDS:
+        sel = rows & (batch["kind"] == KIND_CODE[kind])
+        if sel.any():
+            out[sel] = frac_from_holdup(H[sel], kind).detach()
+    return out
 
 
 def uncertainties(batch: dict[str, torch.Tensor], cfg: LossSettings) -> tuple[torch.Tensor, torch.Tensor]:
@@ -162,14 +190,30 @@ def uncertainties(batch: dict[str, torch.Tensor], cfg: LossSettings) -> tuple[to
     return sh, sp
 
 
-def smoothness(closure: NeuralClosure, s: LocalState) -> torch.Tensor:
-    """Per-state squared gradient norm of the learned log factor w.r.t. standardised features ``(M,)``."""
-    z = closure.standardise(closure_features(s)).detach().requires_grad_(True)
-    g = closure.learned_log_factor(z)
-    total = torch.zeros(z.shape[:-1], dtype=z.dtype)
-    for k in range(g.shape[-1]):
-        (dz,) = torch.autograd.grad(g[..., k].sum(), z, create_graph=True)
-        total = total + (dz**2).sum(dim=-1)
+def smoothness(closure: NeuralClosure, s: LocalState, ev: NeuralEvaluation | None = None) -> torch.Tensor:
+    r"""Per-state squared gradient norm of the learned log factor w.r.t. standardised features ``(M,)``:
+    :math:`\sum_k \lVert \partial g_k / \partial z \rVert^2` (``smooth`` of the module docstring).
+
+    ``ev``: an evaluation at ``s`` with per-branch input leaves
+    (``closure.evaluate(s, input_grad=True)``), reused if given. Branch b reads only its own
+    leaf, so one backward pass of the sum of every branch's j-th output gives each of those
+    outputs' gradient separately, with no pass through the other branches: one pass for a model
+    with one branch per factor, three for one shared network. Factors that are not learned have
+    a zero gradient and add nothing.
+    """
+    if ev is None:
+        z = closure.standardise(closure_features(s))
+        zs = tuple(z.detach().requires_grad_(True) for _ in closure.branches)
+        g = closure.learned_log_factor(zs)
+    else:
+        zs, g = ev.inputs, ev.g
+    total = torch.zeros(g.shape[:-1], dtype=g.dtype)
+    for j in range(max(len(outs) for outs in closure.branch_outputs)):
+        cols = [outs[j] for outs in closure.branch_outputs if len(outs) > j]
+        grads = torch.autograd.grad(g[..., cols].sum(), zs, create_graph=True, allow_unused=True)
+        for dz in grads:
+            if dz is not None:
+                total = total + (dz**2).sum(dim=-1)
     return total
 
 
@@ -224,41 +268,52 @@ class ClosureLoss(nn.Module):
         has_h, has_p = torch.isfinite(H), torch.isfinite(P)
         # a measured state needs 0 < H < 1: a reading of exactly 0 or 1 (clipped by the data
         # reduction) is no separated-flow state; such rows keep only their data-misfit terms
-        state_h = has_h & (H > 0) & (H < 1)
+        state_h = measured_state_rows(H)
+        frac_meas = batch.get("frac_measured")  # precomputed measured_frac(batch), if given
         wt = cfg.weights
         use_res = wt["phase_residual"] > 0 or wt["combined_residual"] > 0
         use_data = wt["data_holdup"] > 0 or wt["data_pgrad"] > 0
         no_root = 0
-        reg_states: list[tuple[LocalState, torch.Tensor]] = []
+        need_smooth = wt["smooth"] > 0 and torch.is_grad_enabled()
+        # one closure evaluation per set of states, shared by the residuals, the prior and the
+        # smoothness penalty: (state, row weights, evaluation or None = not evaluated yet)
+        reg_states: list[tuple[LocalState, torch.Tensor, NeuralEvaluation | None]] = []
         for kind in KINDS:
             sel = batch["kind"] == KIND_CODE[kind]
             # --- (1), (2): residuals at the measured state
             meas = sel & state_h
             if meas.any():
-                c = batch_conditions(batch, meas)
-                s = local_state(c, frac_from_holdup(H[meas], kind), kind)
-                reg_states.append((s, w_row[meas]))
+                im = meas.nonzero().squeeze(-1)  # row indices: one mask conversion for every column
+                c = batch_conditions(batch, im)
+                frac = frac_from_holdup(H[im], kind) if frac_meas is None else frac_meas[im]
+                s = local_state(c, frac, kind)
+                ev = closure.evaluate(s, input_grad=need_smooth) if use_res else None
+                reg_states.append((s, w_row[im], ev))
             if meas.any() and use_res:
-                f = closure(s)
+                f = ev.friction()
                 tau = shear_stresses(s, f)
-                both = has_p[meas]
+                both = has_p[im]
                 if both.any():
-                    p, sig = P[meas][both], sp[meas][both]
-                    sb = local_state(c[both], s.geom.frac[both], kind)
-                    tb = type(tau)(*(t[both] for t in tau))
+                    p, sig = P[im][both], sp[im][both]
+                    if bool(both.all()):  # the same state, not rebuilt from an all-true mask
+                        sb, tb = s, tau
+                    else:
+                        sb = local_state(c[both], s.geom.frac[both], kind)
+                        tb = type(tau)(*(t[both] for t in tau))
                     s_l = s_g = sig
                     if cfg.effective_variance:
-                        d_l, d_g = holdup_sensitivity(closure, c[both], H[meas][both], sh[meas][both], kind, p)
+                        d_l, d_g = holdup_sensitivity(closure, c[both], H[im][both], sh[im][both], kind, p)
                         s_l, s_g = torch.sqrt(sig**2 + d_l**2), torch.sqrt(sig**2 + d_g**2)
                     r_l = liquid_residual(sb, tb, p) / (sb.geom.A_L * s_l)
                     r_g = gas_residual(sb, tb, p) / (sb.geom.A_G * s_g)
                     acc.add("phase_residual", 0.5 * (cauchy(r_l, cfg.residual_robust_scale)
-                                                     + cauchy(r_g, cfg.residual_robust_scale)), w_row[meas][both])
+                                                     + cauchy(r_g, cfg.residual_robust_scale)), w_row[im][both])
                 only = ~both
                 if only.any():
                     so = local_state(c[only], s.geom.frac[only], kind)
                     to = type(tau)(*(t[only] for t in tau))
-                    acc.add("combined_residual", self._combined(closure, so, to), w_row[meas][only])
+                    base = None if ev.base is None else ev.base[only].detach()
+                    acc.add("combined_residual", self._combined(closure, so, to, base), w_row[im][only])
             # --- (3): data misfit of the closure's equilibrium
             data = sel & (has_h | has_p)
             if data.any() and use_data:
@@ -273,31 +328,40 @@ class ClosureLoss(nn.Module):
                 solved = ok & ~state_h[data]
                 if solved.any():
                     s_det = local_state(batch_conditions(batch, data)[solved], sol.frac[solved].detach(), kind)
-                    reg_states.append((s_det, wd[solved]))
+                    reg_states.append((s_det, wd[solved], None))
         # --- (4): observed pattern only
         if cfg.weights["pattern"] > 0:
             no_root += self._pattern(closure, batch, has_h | has_p, acc)
         # --- (5): prior toward the baseline and smoothness, at the collected states
         lam = cfg.prior_vector()
-        for s, w in reg_states:
-            if cfg.weights["prior"] > 0:
-                dlog = closure.log_friction(s) - torch.log(torch.stack(tuple(closure.baseline(s)), dim=-1))
+        for s, w, ev in reg_states:
+            if wt["prior"] == 0 and not need_smooth:
+                break
+            if ev is None:
+                ev = closure.evaluate(s, input_grad=need_smooth)
+            if wt["prior"] > 0:
+                base = ev.base if ev.base is not None else torch.stack(tuple(closure.baseline(s)), dim=-1)
+                dlog = torch.log(ev.factors) - torch.log(base)
                 acc.add("prior", (lam * dlog**2).sum(dim=-1), w)
-            if cfg.weights["smooth"] > 0 and torch.is_grad_enabled():
-                acc.add("smooth", smoothness(closure, s), w)
+            if need_smooth:
+                acc.add("smooth", smoothness(closure, s, ev), w)
         terms = {k: acc.mean(k) for k in TERMS}
         total = sum(cfg.weights[k] * terms[k] for k in TERMS)
         # a zero-valued link to every trainable parameter, so that each (DDP) rank back-propagates
         # through all parameters even when its batch has no row for some term
-        total = total + sum(0.0 * p.sum() for p in closure.parameters() if p.requires_grad)
+        params = [p for p in closure.parameters() if p.requires_grad]
+        if params:
+            total = total + 0.0 * torch.stack([p.sum() for p in params]).sum()
         counts = {**acc.count, "no_root": no_root}
         return total, terms, counts
 
-    def _combined(self, closure: NeuralClosure, s: LocalState, tau) -> torch.Tensor:
-        """Squared combined residual over the baseline's term scale, ``(M,)``."""
+    def _combined(self, closure: NeuralClosure, s: LocalState, tau, base: torch.Tensor | None = None) -> torch.Tensor:
+        """Squared combined residual over the baseline's term scale, ``(M,)``; ``base`` ``(M, 3)``:
+        the baseline factors at ``s`` if already evaluated."""
         c, g = s.cond, s.geom
         with torch.no_grad():
-            tb = shear_stresses(s, closure.baseline(s))
+            fb = closure.baseline(s) if base is None else FrictionFactors(*base.unbind(dim=-1))
+            tb = shear_stresses(s, fb)
             scale = (tb.tau_wg * g.S_G / g.A_G).abs() + (tb.tau_wl * g.S_L / g.A_L).abs() \
                 + (tb.tau_i * g.S_i * (1 / g.A_L + 1 / g.A_G)).abs() \
                 + ((c.rhol - s.rho_core) * c.g * torch.sin(c.theta)).abs()
