@@ -132,6 +132,26 @@ def test_update_replays_earlier_rows_and_measures_forgetting(tables, finetuned):
     assert roles == ["train", "val", "replay"]
 
 
+def test_finetune_replaying_the_pretraining_table_stays_closer_to_the_baseline(tables, pretrained):
+    """A fine-tune that replays its synthetic pre-training rows (weighted) keeps the closure nearer
+    the baseline on those rows than one that does not (rehearsal against forgetting, common
+    practice); the lab rows still pull it away from the baseline."""
+    from closure_nn.training.evaluate import pretraining_tables
+
+    assert pretraining_tables(pretrained["bundle"]) == [str(tables["synth"])]
+    common = ["stage=finetune", f"init_bundle={pretrained['bundle']}", f"data.train={tables['lab']}",
+              f"run_root={tables['root']}", *TINY, "trainer.max_epochs=15", "trainer.patience=0"]
+    plain = train(load_config("train", common + ["run_name=ft_plain", f"data.replay=[{tables['synth']}]",
+                                                  "data.replay_weight=0.0"]))
+    kept = train(load_config("train", common + ["run_name=ft_replay", f"data.replay=[{tables['synth']}]",
+                                                 "data.replay_weight=1.0"]))
+    # forgetting = error on the (baseline-labelled) synthetic rows after minus before
+    assert kept["forgetting"]["holdup_rmse"] < plain["forgetting"]["holdup_rmse"], (kept["forgetting"], plain["forgetting"])
+    assert plain["forgetting"]["holdup_rmse"] > 0
+    roles = [t["role"] for t in load_bundle(kept["bundle"]).bundle_metadata["provenance"]["tables"]]
+    assert roles == ["train", "val", "replay"]
+
+
 class _Interrupt(Exception):
     pass
 

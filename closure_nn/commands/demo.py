@@ -172,6 +172,11 @@ def _summary(ev: dict, audit: dict, line: dict, seconds: dict, run_dir: Path, li
         lines.append(f"| ensemble of {e['members']} (min-max) | {e['p_inlet_Pa']['min'] / 1e5:.2f}-{e['p_inlet_Pa']['max'] / 1e5:.2f} | | "
                      f"{e['liquid_inventory_m3']['min']:.1f}-{e['liquid_inventory_m3']['max']:.1f} | |")
         data["line"]["ensemble"] = e
+        lines += ["", f"Here 'learned' is the ensemble's mean closure (geometric mean of the {e['members']} members' "
+                  "friction factors; member 0 is the evaluated fine-tuned closure). Its line can fall outside the "
+                  "members' min-max: the members differ along the direction holdup and pgrad cannot fix (more gas-wall, "
+                  "less interfacial friction), and averaging factors is not averaging results. A wide band means the "
+                  "lab rows do not pin the closure down at the line's conditions."]
     lines += ["", f"Plot: {line_dir / 'line.png'}", "",
               "Time [s]: " + ", ".join(f"{k} {v:.0f}" for k, v in seconds.items())]
     return {"text": "\n".join(lines), "data": data}

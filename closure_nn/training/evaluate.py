@@ -38,6 +38,7 @@ Public functions: :func:`load_lab`, :func:`make_synthetic`, :func:`pretrain`, :f
 from __future__ import annotations
 
 import csv
+import json
 import math
 import time
 import warnings
@@ -139,16 +140,46 @@ def pretrain(cfg: DictConfig, table: str | Path, run_root: str | Path, name: str
     return train(train_config(cfg, "pretrain", [f"data.train={table}", f"run_root={run_root}", f"run_name={name}"]))
 
 
+def pretraining_tables(bundle: str | Path) -> list[str]:
+    """Paths of the training tables a bundle (or an ensemble's first member) was PRE-trained on,
+    from its provenance (``bundle.json``); empty if it was not a pre-training run."""
+    b = Path(bundle)
+    meta_file = b / "bundle.json" if (b / "bundle.json").exists() else b / "member_0" / "bundle.json"
+    prov = json.loads(meta_file.read_text()).get("provenance", {})
+    if prov.get("stage") != "pretrain":
+        return []
+    return [t["path"] for t in prov.get("tables", []) if t.get("role") == "train"]
+
+
+def replay_overrides(cfg: DictConfig, init_bundle: str | Path) -> list[str]:
+    """Train overrides that make a fine-tune replay the init bundle's pre-training table
+    (``experiment.replay_pretraining``: share and row weight; none if null), so that where the
+    lab rows are silent the closure keeps what it learned from the baseline."""
+    r = _exp(cfg).get("replay_pretraining")
+    if not r:
+        return []
+    tables = pretraining_tables(init_bundle)
+    missing = [t for t in tables if not Path(t).exists()]
+    if not tables or missing:
+        raise InputError(f"finetune: experiment.replay_pretraining is set but the pre-training table of {init_bundle} "
+                         f"is {'unknown' if not tables else 'missing: ' + ', '.join(missing)}; "
+                         "set experiment.replay_pretraining=null or pre-train again")
+    return [f"data.replay=[{','.join(tables)}]", f"data.replay_fraction={float(r.fraction)}",
+            f"data.replay_weight={float(r.weight)}"]
+
+
 def finetune(cfg: DictConfig, init_bundle: str | Path, rows: pd.DataFrame, run_root: str | Path, name: str,
              overrides: list[str] | tuple[str, ...] = ()) -> dict:
-    """Fine-tune ``init_bundle`` on the lab ``rows`` (written to ``run_root/<name>_rows.parquet``)."""
+    """Fine-tune ``init_bundle`` on the lab ``rows`` (written to ``run_root/<name>_rows.parquet``),
+    replaying its pre-training table as ``experiment.replay_pretraining`` says."""
     from .run import train
 
     root = Path(run_root)
     root.mkdir(parents=True, exist_ok=True)
     table = write_table(rows.reset_index(drop=True), root / f"{name}_rows.parquet")
     return train(train_config(cfg, "finetune", ["stage=finetune", f"init_bundle={init_bundle}", f"data.train={table}",
-                                                f"run_root={root}", f"run_name={name}", *overrides]))
+                                                f"run_root={root}", f"run_name={name}",
+                                                *replay_overrides(cfg, init_bundle), *overrides]))
 
 
 def train_experiment(cfg: DictConfig, lab_df: pd.DataFrame, run_dir: str | Path, rows: np.ndarray | None = None,

@@ -7,7 +7,9 @@ Stages (``cfg.stage``):
 ``finetune``  start from ``cfg.init_bundle``; learning rate times ``finetune.lr_factor``; the first
               ``finetune.freeze_layers`` hidden layers frozen; scaler kept, domain widened.
 ``update``    like ``finetune`` on new rows, plus replay of ``data.replay`` tables (share
-              ``data.replay_fraction``); the accuracy on those earlier tables is measured before
+              ``data.replay_fraction``, row weight ``data.replay_weight``; a fine-tune may replay
+              too, e.g. its synthetic pre-training table, so that the closure keeps the baseline
+              where the lab rows are silent); the accuracy on those earlier tables is measured before
               and after, and the change is reported as ``forgetting``.
 
 Ensembles (``ensemble.members`` > 1): member m uses seed ``seed + m`` and, with
@@ -115,11 +117,17 @@ def _strategy(t: DictConfig):
     return t.strategy
 
 
+#: column of the combined training table: 1 for the stage's own rows, ``data.replay_weight`` for
+#: replayed rows (multiplies every loss term of the row)
+ROW_WEIGHT = "_row_weight"
+
+
 def _fit_one(cfg: DictConfig, train_df: pd.DataFrame, val_t: dict, replay_t: dict | None, seed: int,
              out_dir: Path, member: int, callbacks: list) -> tuple[NeuralClosure, dict]:
     L.seed_everything(seed, workers=True, verbose=False)
     closure = _start_closure(cfg, train_df, member)
-    train_t = table_tensors(train_df, cfg.data.unknown_pattern)
+    w = train_df[ROW_WEIGHT].to_numpy() if ROW_WEIGHT in train_df.columns else 1.0
+    train_t = table_tensors(train_df, cfg.data.unknown_pattern, weight=w)
     metrics: dict = {"seed": seed, "val_initial": accuracy(closure, val_t, cfg.loss.select)}
     if replay_t is not None:
         metrics["replay_before"] = accuracy(closure, replay_t, cfg.loss.select)
@@ -241,7 +249,7 @@ def train(cfg: DictConfig, callbacks: list | None = None) -> dict:
     provenance = {"stage": cfg.stage, "init_bundle": cfg.init_bundle,
                   "tables": [_provenance("train", cfg.data.train, train_df), _provenance("val", cfg.data.val or "split", val_df)]}
     replay_df = None
-    if cfg.stage == "update" and cfg.data.replay:
+    if cfg.stage in ("finetune", "update") and cfg.data.replay:
         parts = [read_table(p) for p in cfg.data.replay]
         replay_df = pd.concat(parts, ignore_index=True)
         provenance["tables"] += [_provenance("replay", p, d) for p, d in zip(cfg.data.replay, parts)]
@@ -256,7 +264,9 @@ def train(cfg: DictConfig, callbacks: list | None = None) -> dict:
         if cfg.ensemble.bootstrap and n_members > 1:
             df = bootstrap_table(train_df, seed)
         if replay_df is not None:
-            df = pd.concat([df, replay_sample(replay_df, float(cfg.data.replay_fraction), seed)], ignore_index=True)
+            rep = replay_sample(replay_df, float(cfg.data.replay_fraction), seed)
+            df = pd.concat([df.assign(**{ROW_WEIGHT: 1.0}), rep.assign(**{ROW_WEIGHT: float(cfg.data.replay_weight)})],
+                           ignore_index=True)
         out_dir = run_dir if n_members == 1 else run_dir / f"member_{m}"
         jobs.append((df, seed, out_dir, m))
     n_proc = min(int(cfg.ensemble.processes), n_members)
