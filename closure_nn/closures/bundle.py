@@ -4,9 +4,13 @@ Layout (our own format, ``format = "closure-nn-bundle"``)::
 
     <bundle>/
       bundle.json   metadata: format and version, model constructor arguments, feature names,
-                    scaler, training-domain summary, data provenance, metrics, resolved
-                    training config, package versions, SHA-256 of the weights, the caution
+                    scaler, training-domain and measured-data-domain summaries, data provenance,
+                    metrics, resolved training config, package versions, SHA-256 of the weights,
+                    the caution
       weights.pt    the state dict (float64 tensors; includes scaler and domain buffers)
+
+Bundles written before the measured-data domain existed have no ``measured_*`` buffers: they
+load with an empty measured-data domain and ``closure.measured_domain_recorded = False``.
 
 :func:`load_bundle` rebuilds the :class:`~closure_nn.closures.neural.NeuralClosure` with torch
 only (no Lightning, no Hydra) and checks it: missing file or key, unparsable JSON, unknown format
@@ -85,11 +89,25 @@ def save_bundle(closure: NeuralClosure, path: str | os.PathLike, *, provenance: 
         "scaler": {"mean": closure.feature_mean.tolist(), "std": closure.feature_std.tolist()},
         "domain": domain or {"n_points": int(closure.domain_points.shape[0]),
                              "nn_threshold": float(closure.domain_threshold)},
+        "measured_domain": _measured_summary(closure),
         "provenance": provenance or {}, "metrics": metrics or {}, "config": config or {},
         "versions": versions(), "checksums": {WEIGHTS_FILE: _sha256(wpath)}, "caution": CAUTION,
     }
     (p / META_FILE).write_text(json.dumps(meta, indent=2, default=json_default) + "\n")
     return p
+
+
+#: state-dict keys of the measured-data domain (absent from older bundles)
+MEASURED_KEYS = ("measured_lo", "measured_hi", "measured_points", "measured_threshold")
+
+
+def _measured_summary(closure: NeuralClosure) -> dict:
+    """Readable summary of the measured-data domain (the points travel in the weights)."""
+    n = int(closure.measured_points.shape[0])
+    return {"n_points": n, "nn_threshold": float(closure.measured_threshold),
+            "lo": closure.measured_lo.tolist() if n else None, "hi": closure.measured_hi.tolist() if n else None,
+            "rows": "fine-tune and update stages (measured rows), not the synthetic pre-training points",
+            "units": "standardised features z = (x - mean) / std"}
 
 
 def read_metadata(path: str | os.PathLike) -> dict:
@@ -147,11 +165,18 @@ def load_bundle(path: str | os.PathLike):
         raise BundleError(f"{root / META_FILE}: bad model description {meta['model']} ({exc})") from None
     if "domain_points" in state:
         closure.set_domain(state["domain_lo"], state["domain_hi"], state["domain_points"], float(state["domain_threshold"]))
+    recorded = all(k in state for k in MEASURED_KEYS)
+    if recorded:
+        closure.set_measured_domain(*(state[k] for k in MEASURED_KEYS[:3]), float(state["measured_threshold"]))
+    elif not any(k in state for k in MEASURED_KEYS):  # an older bundle: no measured-data domain recorded
+        own = closure.state_dict()
+        state = {**state, **{k: own[k] for k in MEASURED_KEYS}}
     try:
         closure.load_state_dict(state, strict=True)
     except RuntimeError as exc:
         first = str(exc).splitlines()[0]
         raise BundleError(f"{wpath}: the weights do not fit the model described in {META_FILE} ({first})") from None
+    closure.measured_domain_recorded = recorded
     closure.bundle_metadata = meta
     closure.eval()
     return closure
@@ -167,6 +192,10 @@ def export_plain(closure: NeuralClosure, path: str | os.PathLike) -> Path:
     ``outputs`` (indices into f_wl, f_wg, f_i), giving o; correction mode
     ``f = f_base * exp(bound * tanh(o))``, direct mode ``f = exp(log_f_ref + span * tanh(o / span))``;
     outputs ordered f_wl, f_wg, f_i.
+
+    Measured-data domain (``measured_domain``): a state is inside when every z lies in
+    ``[lo, hi]`` and the Euclidean distance from z to the nearest of ``points`` is at most
+    ``threshold``; with no points every state is outside.
     """
     import torch.nn as nn
 
@@ -181,6 +210,7 @@ def export_plain(closure: NeuralClosure, path: str | os.PathLike) -> Path:
         "baseline": closure.hparams["baseline"],
         "scaler": {"mean": closure.feature_mean.tolist(), "std": closure.feature_std.tolist()},
         "branches": branches,
+        "measured_domain": _plain_domain(closure),
         "activation_definitions": {"silu": "x / (1 + exp(-x))", "tanh": "tanh(x)",
                                    "softplus": "log(1 + exp(x))", "gelu": "0.5 x (1 + erf(x / sqrt(2)))"},
         "evaluation": export_plain.__doc__.split("Evaluation", 1)[1].strip(),
@@ -189,3 +219,13 @@ def export_plain(closure: NeuralClosure, path: str | os.PathLike) -> Path:
     p.parent.mkdir(parents=True, exist_ok=True)
     p.write_text(json.dumps(spec, indent=1) + "\n")
     return p
+
+
+def _plain_domain(closure: NeuralClosure) -> dict:
+    """The measured-data domain for :func:`export_plain` (plain lists, standardised units; no
+    infinities, so strict JSON readers accept it)."""
+    n = int(closure.measured_points.shape[0])
+    return {"recorded": bool(getattr(closure, "measured_domain_recorded", True)), "n_points": n,
+            "lo": closure.measured_lo.tolist() if n else None, "hi": closure.measured_hi.tolist() if n else None,
+            "points": closure.measured_points.tolist(), "threshold": float(closure.measured_threshold),
+            "units": "standardised features z = (x - mean) / std"}

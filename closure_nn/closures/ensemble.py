@@ -106,6 +106,17 @@ class ClosureEnsemble(Closure):
         masks = [m.in_domain(features) for m in self.members]
         return torch.stack(masks).all(dim=0)
 
+    def in_measured_domain(self, features: torch.Tensor) -> torch.Tensor:
+        """Inside the measured-data domain of every member (bootstrap members each hold the domain
+        of their own replicate of the rows; requiring all of them is the cautious reading)."""
+        masks = [m.in_measured_domain(features) for m in self.members]
+        return torch.stack(masks).all(dim=0)
+
+    @property
+    def measured_domain_recorded(self) -> bool:
+        """True when every member records a measured-data domain (older bundles do not)."""
+        return all(getattr(m, "measured_domain_recorded", True) for m in self.members)
+
     def describe(self) -> dict:
         return {**super().describe(), "members": [m.describe() for m in self.members]}
 

@@ -22,6 +22,11 @@ Positivity holds by construction in both modes (exponential of a finite number).
 The training domain (per-feature bounds plus a nearest-neighbour distance threshold in the
 standardised feature space, fitted by :mod:`closure_nn.data.features`) is stored in buffers, so it
 travels with the weights; :meth:`NeuralClosure.in_domain` flags states outside it.
+
+A second domain of the same kind, the measured-data domain (buffers ``measured_*``), covers only the
+rows of the fine-tune and update stages (flow-loop measurements), not the synthetic pre-training
+points; :meth:`NeuralClosure.in_measured_domain` flags states outside it. A pre-trained-only closure
+has an empty measured-data domain: every state is outside it.
 """
 from __future__ import annotations
 
@@ -200,6 +205,13 @@ class NeuralClosure(Closure):
         self.register_buffer("domain_hi", torch.full((n_in,), torch.inf, **f64))
         self.register_buffer("domain_points", torch.zeros(0, n_in, **f64))
         self.register_buffer("domain_threshold", torch.tensor(0.0, **f64))
+        # measured-data domain: empty until a fine-tune or update stores its rows' domain
+        self.register_buffer("measured_lo", torch.full((n_in,), torch.inf, **f64))
+        self.register_buffer("measured_hi", torch.full((n_in,), -torch.inf, **f64))
+        self.register_buffer("measured_points", torch.zeros(0, n_in, **f64))
+        self.register_buffer("measured_threshold", torch.tensor(0.0, **f64))
+        #: False for a closure loaded from a bundle written before the measured-data domain existed
+        self.measured_domain_recorded = True
         self.label = f"neural({mode}, hidden={list(self.hidden)}, {activation})"
 
     # ----------------------------------------------------------------- configuration
@@ -224,6 +236,15 @@ class NeuralClosure(Closure):
         self.domain_hi = torch.as_tensor(hi, dtype=torch.float64).clone()
         self.domain_points = torch.as_tensor(points, dtype=torch.float64).clone()
         self.domain_threshold = torch.as_tensor(float(threshold), dtype=torch.float64)
+
+    def set_measured_domain(self, lo: torch.Tensor, hi: torch.Tensor, points: torch.Tensor, threshold: float) -> None:
+        """Store the measured-data domain (standardised units, as :meth:`set_domain`): bounds ``(F,)``,
+        points ``(M, F)`` of the fine-tune/update rows; ``M = 0`` means no measured rows."""
+        self.measured_lo = torch.as_tensor(lo, dtype=torch.float64).clone()
+        self.measured_hi = torch.as_tensor(hi, dtype=torch.float64).clone()
+        self.measured_points = torch.as_tensor(points, dtype=torch.float64).clone()
+        self.measured_threshold = torch.as_tensor(float(threshold), dtype=torch.float64)
+        self.measured_domain_recorded = True
 
     def freeze_layers(self, n: int) -> None:
         """Stop training the first ``n`` hidden Linear layers of every branch (fine-tuning); the
@@ -302,6 +323,12 @@ class NeuralClosure(Closure):
         """Bool mask ``(*batch)``: raw features ``(*batch, F)`` inside the stored training domain."""
         return domain_mask(self.standardise(torch.as_tensor(features, dtype=torch.float64)), self.domain_lo,
                            self.domain_hi, self.domain_points, self.domain_threshold, margin)
+
+    def in_measured_domain(self, features: torch.Tensor, margin: float = 0.0) -> torch.Tensor:
+        """Bool mask ``(*batch)``: raw features ``(*batch, F)`` inside the measured-data domain (the
+        fine-tune/update rows). All False for a closure without measured rows."""
+        return domain_mask(self.standardise(torch.as_tensor(features, dtype=torch.float64)), self.measured_lo,
+                           self.measured_hi, self.measured_points, self.measured_threshold, margin)
 
     def describe(self) -> dict:
         return {**super().describe(), **self.hparams, "feature_names": list(FEATURE_NAMES),

@@ -158,25 +158,34 @@ def _summary(ev: dict, audit: dict, line: dict, seconds: dict, run_dir: Path, li
         lines.append(f"- learned closure health: {audit['health'].get('verdict', '?')}")
     data["audit"] = {"summary": a, "score": s, "health": (audit.get("health") or {}).get("verdict")}
     lines += ["", "## Line: Karvel Ridge tie-back (invented)", "",
-              "| closure | inlet p [bar] | pressure drop [bar] (friction / gravity) | liquid inventory [m3] | stations outside training domain |",
-              "|---|---|---|---|---|"]
+              "| closure | inlet p [bar] | pressure drop [bar] (friction / gravity) | liquid inventory [m3] | "
+              "stations outside training domain | stations outside the measured data |",
+              "|---|---|---|---|---|---|"]
     data["line"] = {}
     for name, c in line["closures"].items():
         ood = c.get("out_of_domain", {})
         ood_txt = str(ood.get("stations", 0)) if ood.get("checked") else "n/a"
+        mea = c.get("out_of_measured_domain", {})
+        mea_txt = f"{mea['stations']} of {mea['of']}" if mea.get("checked") else "n/a"
         lines.append(f"| {name} | {c['p_inlet_bar']:.2f} | {c['dp_total_Pa'] / 1e5:.2f} ({c['dp_friction_Pa'] / 1e5:.2f} / "
-                     f"{c['dp_gravity_Pa'] / 1e5:.2f}) | {c['liquid_inventory_m3']:.1f} | {ood_txt} |")
+                     f"{c['dp_gravity_Pa'] / 1e5:.2f}) | {c['liquid_inventory_m3']:.1f} | {ood_txt} | {mea_txt} |")
         data["line"][name] = {k: c[k] for k in ("p_inlet_bar", "dp_total_Pa", "dp_friction_Pa", "dp_gravity_Pa", "liquid_inventory_m3")}
+        data["line"][name]["stations_outside_measured_data"] = mea.get("stations") if mea.get("checked") else None
     if "ensemble" in line:
         e = line["ensemble"]
+        per = [k for k in e.get("out_of_measured_domain_stations", []) if k is not None]
+        mea_txt = f"{min(per)}-{max(per)}" if per else ""
         lines.append(f"| ensemble of {e['members']} (min-max) | {e['p_inlet_Pa']['min'] / 1e5:.2f}-{e['p_inlet_Pa']['max'] / 1e5:.2f} | | "
-                     f"{e['liquid_inventory_m3']['min']:.1f}-{e['liquid_inventory_m3']['max']:.1f} | |")
+                     f"{e['liquid_inventory_m3']['min']:.1f}-{e['liquid_inventory_m3']['max']:.1f} | | {mea_txt} |")
         data["line"]["ensemble"] = e
         lines += ["", f"Here 'learned' is the ensemble's mean closure (geometric mean of the {e['members']} members' "
                   "friction factors; member 0 is the evaluated fine-tuned closure). Its line can fall outside the "
                   "members' min-max: the members differ along the direction holdup and pgrad cannot fix (more gas-wall, "
                   "less interfacial friction), and averaging factors is not averaging results. A wide band means the "
                   "lab rows do not pin the closure down at the line's conditions."]
+    if any(c.get("out_of_measured_domain", {}).get("stations") for c in line["closures"].values()):
+        lines += ["", "At stations outside the measured data no lab row supports the learned correction: it rests on "
+                  "the synthetic baseline points of the pre-training only (or, outside the training domain, on nothing)."]
     lines += ["", f"Plot: {line_dir / 'line.png'}", "",
               "Time [s]: " + ", ".join(f"{k} {v:.0f}" for k, v in seconds.items())]
     return {"text": "\n".join(lines), "data": data}

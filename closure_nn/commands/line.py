@@ -92,6 +92,11 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     for name, s in summ["closures"].items():
         ood = s["out_of_domain"]
         ood_txt = f", outside training domain at {ood['stations']} stations" if ood.get("checked") and ood["stations"] else ""
+        mea = s["out_of_measured_domain"]
+        if mea.get("checked"):
+            ood_txt += f", outside measured data at {mea['stations']} of {mea['of']} stations"
+            if not mea.get("recorded", True):
+                ood_txt += " (the bundle records no measured-data domain)"
         print(f"  {name:<14} inlet {s['p_inlet_bar']:8.3f} bar  outlet {s['p_outlet_bar']:8.3f} bar  "
               f"dp {s['dp_total_Pa'] / 1e5:7.3f} bar (friction {s['dp_friction_Pa'] / 1e5:.3f}, gravity "
               f"{s['dp_gravity_Pa'] / 1e5:.3f})  liquid {s['liquid_inventory_m3']:8.1f} m3{ood_txt}")

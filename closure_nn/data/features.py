@@ -18,6 +18,10 @@ and from the features of those states
   leave-one-out nearest-neighbour distances among the training points (default 2 x the 95th
   percentile) - a common-practice rule for distance-based applicability domains, our choice of
   constants.
+
+The same class describes the measured-data domain of a neural closure: the domain of the rows of
+its fine-tune and update stages only (``measured=True`` in :meth:`TrainingDomain.apply_to` and
+:meth:`TrainingDomain.from_closure`), in the pre-training scaler's standardised units.
 """
 from __future__ import annotations
 
@@ -179,8 +183,21 @@ class TrainingDomain:
         return cls(lo=z.min(dim=0).values, hi=z.max(dim=0).values, points=z, threshold=threshold,
                    rule={"quantile": quantile, "factor": factor, "max_points": max_points})
 
+    @classmethod
+    def empty(cls, n_features: int = len(FEATURE_NAMES)) -> "TrainingDomain":
+        """A domain without points (every state outside); bounds +inf / -inf (an empty box)."""
+        f64 = dict(dtype=torch.float64)
+        return cls(lo=torch.full((n_features,), torch.inf, **f64), hi=torch.full((n_features,), -torch.inf, **f64),
+                   points=torch.zeros(0, n_features, **f64), threshold=0.0)
+
     def merged(self, other: "TrainingDomain", max_points: int | None = None, seed: int = 0) -> "TrainingDomain":
-        """Union with another domain in the same standardised space (fine-tuning, updates)."""
+        """Union with another domain in the same standardised space (fine-tuning, updates). A side
+        without points contributes nothing (not its bounds, nor its threshold)."""
+        if other.points.shape[0] == 0 or self.points.shape[0] == 0:
+            keep = self if other.points.shape[0] == 0 else other
+            rule = dict(self.rule or other.rule)
+            return TrainingDomain(lo=keep.lo.clone(), hi=keep.hi.clone(), points=keep.points.clone(),
+                                  threshold=keep.threshold, names=self.names, rule=rule)
         pts = torch.cat([self.points, other.points])
         cap = max_points or int(self.rule.get("max_points", 1000))
         if pts.shape[0] > cap:
@@ -193,17 +210,23 @@ class TrainingDomain:
         """Bool mask ``(*batch)`` for raw features ``(*batch, F)``."""
         return domain_mask(scaler.transform(x), self.lo, self.hi, self.points, torch.tensor(self.threshold), margin)
 
-    def apply_to(self, closure) -> None:
-        """Store this domain in a :class:`~closure_nn.closures.neural.NeuralClosure`'s buffers."""
-        closure.set_domain(self.lo, self.hi, self.points, self.threshold)
+    def apply_to(self, closure, measured: bool = False) -> None:
+        """Store this domain in a :class:`~closure_nn.closures.neural.NeuralClosure`'s buffers: the
+        training domain, or with ``measured=True`` the measured-data domain."""
+        setter = closure.set_measured_domain if measured else closure.set_domain
+        setter(self.lo, self.hi, self.points, self.threshold)
 
     @classmethod
-    def from_closure(cls, closure) -> "TrainingDomain":
-        return cls(lo=closure.domain_lo.clone(), hi=closure.domain_hi.clone(), points=closure.domain_points.clone(),
-                   threshold=float(closure.domain_threshold))
+    def from_closure(cls, closure, measured: bool = False) -> "TrainingDomain":
+        """The training domain (or with ``measured=True`` the measured-data domain) stored in a closure."""
+        pre = "measured" if measured else "domain"
+        return cls(lo=getattr(closure, f"{pre}_lo").clone(), hi=getattr(closure, f"{pre}_hi").clone(),
+                   points=getattr(closure, f"{pre}_points").clone(), threshold=float(getattr(closure, f"{pre}_threshold")))
 
     def to_dict(self) -> dict:
-        """Readable summary for bundle metadata (the points themselves travel in the weights)."""
-        return {"names": list(self.names), "lo": self.lo.tolist(), "hi": self.hi.tolist(),
+        """Readable summary for bundle metadata (the points themselves travel in the weights);
+        bounds are None for a domain without points."""
+        none = self.points.shape[0] == 0
+        return {"names": list(self.names), "lo": None if none else self.lo.tolist(), "hi": None if none else self.hi.tolist(),
                 "n_points": int(self.points.shape[0]), "nn_threshold": self.threshold, "rule": self.rule,
                 "units": "standardised features z = (x - mean) / std"}

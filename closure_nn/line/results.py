@@ -23,7 +23,7 @@ from .march import MarchResult
 #: station table columns (SI; glossary names)
 STATION_COLUMNS = ("closure", "role", "station", "profile_station", "distance", "elevation", "theta", "D", "T", "p",
                    "holdup", "pattern", "pgrad", "pgrad_friction", "pgrad_gravity", "vsg", "vsl", "rhog",
-                   "in_domain", "flags", "step_error")
+                   "in_domain", "in_measured_domain", "flags", "step_error")
 
 
 def station_values(res: MarchResult, key: str) -> np.ndarray:
@@ -31,8 +31,10 @@ def station_values(res: MarchResult, key: str) -> np.ndarray:
     return np.concatenate([res.start[key], res.end[key][-1:]])
 
 
-def station_table(res: MarchResult, closure: str, role: str, in_domain: np.ndarray | None = None):
-    """Per-station DataFrame of one march (columns :data:`STATION_COLUMNS`)."""
+def station_table(res: MarchResult, closure: str, role: str, in_domain: np.ndarray | None = None,
+                  in_measured_domain: np.ndarray | None = None):
+    """Per-station DataFrame of one march (columns :data:`STATION_COLUMNS`). A closure without a
+    domain check gets True in ``in_domain`` / ``in_measured_domain`` (nothing to flag)."""
     import pandas as pd
 
     m = res.mesh
@@ -46,6 +48,7 @@ def station_table(res: MarchResult, closure: str, role: str, in_domain: np.ndarr
         "p": res.p, "holdup": sv("holdup"), "pattern": [PATTERNS[int(c)] for c in sv("pattern")], "pgrad": sv("pgrad"),
         "pgrad_friction": sv("friction"), "pgrad_gravity": sv("gravity"), "vsg": sv("vsg"), "vsl": sv("vsl"),
         "rhog": sv("rhog"), "in_domain": np.ones(n + 1, dtype=bool) if in_domain is None else in_domain,
+        "in_measured_domain": np.ones(n + 1, dtype=bool) if in_measured_domain is None else in_measured_domain,
         "flags": sv("flags"), "step_error": np.concatenate([res.step_error, [np.nan]]),
     })
     return df[list(STATION_COLUMNS)]
@@ -68,8 +71,19 @@ def intervals(distance: np.ndarray, mask: np.ndarray) -> list[list[float]]:
     return out
 
 
-def summarise(res: MarchResult, in_domain: np.ndarray | None = None) -> dict:
-    """JSON-able summary of one march (pressures [Pa] and [bar], inventory [m3], shares [-])."""
+def _outside(s: np.ndarray, inside: np.ndarray | None) -> dict:
+    """Count and distance intervals [m] of the stations where ``inside`` is False."""
+    if inside is None:
+        return {"checked": False}
+    bad = ~np.asarray(inside, dtype=bool)
+    return {"checked": True, "stations": int(bad.sum()), "of": int(len(bad)), "intervals_m": intervals(s, bad)}
+
+
+def summarise(res: MarchResult, in_domain: np.ndarray | None = None,
+              in_measured_domain: np.ndarray | None = None) -> dict:
+    """JSON-able summary of one march (pressures [Pa] and [bar], inventory [m3], shares [-]), with
+    the stations outside the training domain (``out_of_domain``) and outside the measured-data
+    domain (``out_of_measured_domain``)."""
     h = res.h
     A = math.pi * res.mesh.D.numpy() ** 2 / 4
     w = 0.5 * h
@@ -90,12 +104,8 @@ def summarise(res: MarchResult, in_domain: np.ndarray | None = None) -> dict:
         "liquid_inventory_m3": inv, "pattern_share_of_length": dict(sorted(share.items(), key=lambda kv: -kv[1])),
         "march": res.diagnostics,
     }
-    if in_domain is None:
-        out["out_of_domain"] = {"checked": False}
-    else:
-        bad = ~np.asarray(in_domain, dtype=bool)
-        out["out_of_domain"] = {"checked": True, "stations": int(bad.sum()), "of": int(len(bad)),
-                                "intervals_m": intervals(s, bad)}
+    out["out_of_domain"] = _outside(s, in_domain)
+    out["out_of_measured_domain"] = _outside(s, in_measured_domain)
     return out
 
 

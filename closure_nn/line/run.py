@@ -10,6 +10,11 @@ Out-of-domain check: a closure with a method ``in_domain(features) -> bool mask`
 every station, with ``features = closure_features(state)`` at the station's solved state
 (:meth:`closure_nn.line.local.LocalSolver.features`). Stations where it answers False are
 flagged in the table, the summary and the plot. Closures without the method are not checked.
+
+Measured-data check: likewise with ``in_measured_domain(features)`` (a neural closure's domain of
+its fine-tune/update rows, see :mod:`closure_nn.closures.neural`): stations outside it are where
+the learned correction rests on synthetic baseline points only (or on nothing). Reported as
+``out_of_measured_domain`` in the summary and ``in_measured_domain`` in ``stations.csv``.
 """
 from __future__ import annotations
 
@@ -39,14 +44,25 @@ class LineRun:
     in_domain: dict[str, np.ndarray]
     failures: dict[str, str] = field(default_factory=dict)
     gas: dict = field(default_factory=dict)
+    #: per closure name: station mask of the measured-data domain (closures that have one)
+    in_measured: dict[str, np.ndarray] = field(default_factory=dict)
+    #: per closure name: False where a bundle predates the measured-data domain
+    measured_recorded: dict[str, bool] = field(default_factory=dict)
+
+    def _summarise(self, name: str, r: MarchResult) -> dict:
+        s = summarise(r, self.in_domain.get(name), self.in_measured.get(name))
+        if s["out_of_measured_domain"]["checked"]:
+            s["out_of_measured_domain"]["recorded"] = self.measured_recorded.get(name, True)
+        return s
 
     def stations(self):
         """All marches in one long per-station table."""
         import pandas as pd
 
-        frames = [station_table(r, name, "compare", self.in_domain.get(name)) for name, r in self.results.items()]
-        frames += [station_table(r, f"member_{i}", "member", self.in_domain.get(f"member_{i}"))
-                   for i, r in enumerate(self.members)]
+        frames = [station_table(r, name, "compare", self.in_domain.get(name), self.in_measured.get(name))
+                  for name, r in self.results.items()]
+        frames += [station_table(r, f"member_{i}", "member", self.in_domain.get(f"member_{i}"),
+                                 self.in_measured.get(f"member_{i}")) for i, r in enumerate(self.members)]
         return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame()
 
     def band(self):
@@ -59,28 +75,31 @@ class LineRun:
             "length_m": float(ln.distance[-1] - ln.distance[0]), "profile_stations": int(len(ln.distance)),
             "boundary": {"at": ln.boundary, "p_Pa": ln.p_boundary}, "m_gas_kg_s": ln.m_gas,
             "m_liquid_kg_s": ln.m_liquid, "fluid": {**ln.fluid.__dict__, **self.gas},
-            "closures": {name: summarise(r, self.in_domain.get(name)) for name, r in self.results.items()},
+            "closures": {name: self._summarise(name, r) for name, r in self.results.items()},
         }
         if self.members:
-            ms = [summarise(r, self.in_domain.get(f"member_{i}")) for i, r in enumerate(self.members)]
+            ms = [self._summarise(f"member_{i}", r) for i, r in enumerate(self.members)]
             out["ensemble"] = ensemble_summary(ms)
             out["ensemble"]["out_of_domain_stations"] = [m["out_of_domain"].get("stations") for m in ms]
+            out["ensemble"]["out_of_measured_domain_stations"] = [m["out_of_measured_domain"].get("stations") for m in ms]
         if self.failures:
             out["failures"] = self.failures
         out["caution"] = CAUTION
         return out
 
 
-def domain_mask(closure, features: np.ndarray | None) -> np.ndarray | None:
-    """``closure.in_domain`` at finite feature rows (rows with NaN features count as inside)."""
-    if features is None or not callable(getattr(closure, "in_domain", None)):
+def domain_mask(closure, features: np.ndarray | None, method: str = "in_domain") -> np.ndarray | None:
+    """``closure.<method>`` (``in_domain`` or ``in_measured_domain``) at finite feature rows (rows
+    with NaN features count as inside); None when the closure has no such method."""
+    check = getattr(closure, method, None)
+    if features is None or not callable(check):
         return None
     x = torch.as_tensor(features, dtype=torch.float64)
     finite = torch.isfinite(x).all(dim=-1)
     mask = torch.ones(x.shape[0], dtype=torch.bool)
     if bool(finite.any()):
         with torch.no_grad():
-            mask[finite] = torch.as_tensor(closure.in_domain(x[finite])).to(torch.bool).reshape(-1)
+            mask[finite] = torch.as_tensor(check(x[finite])).to(torch.bool).reshape(-1)
     return mask.numpy()
 
 
@@ -103,7 +122,7 @@ def run_line(line: LineDefinition, closures: Mapping[str, object], ensemble: Seq
     gas = GasModel(line.fluid, (float(line.T.min()), float(line.T.max())))
     local = LocalSolver(line, gas, dict(solver or {}))
     _check_inputs(line, local)
-    results, members, dom, failures = {}, [], {}, {}
+    results, members, dom, failures, measured, recorded = {}, [], {}, {}, {}, {}
     jobs = [(name, c, False) for name, c in closures.items()] + [(f"member_{i}", c, True) for i, c in enumerate(ensemble)]
     for name, closure, is_member in jobs:
         try:
@@ -117,7 +136,12 @@ def run_line(line: LineDefinition, closures: Mapping[str, object], ensemble: Seq
         mask = domain_mask(closure, r.features)
         if mask is not None:
             dom[name] = mask
-    return LineRun(line=line, results=results, members=members, in_domain=dom, failures=failures, gas=gas.describe())
+        mask = domain_mask(closure, r.features, "in_measured_domain")
+        if mask is not None:
+            measured[name] = mask
+            recorded[name] = bool(getattr(closure, "measured_domain_recorded", True))
+    return LineRun(line=line, results=results, members=members, in_domain=dom, failures=failures, gas=gas.describe(),
+                   in_measured=measured, measured_recorded=recorded)
 
 
 def write_line_run(run: LineRun, run_dir: str | Path, config_yaml: str | None = None, plot: bool = True) -> dict[str, Path]:

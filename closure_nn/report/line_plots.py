@@ -3,8 +3,10 @@
 Layout (our own): two stacked panels share the distance axis - pressure [bar] and holdup [-],
 each drawn over the terrain (elevation, right axis, shaded) - and below them one thin band per
 closure coloured by flow pattern, with out-of-domain stations marked by a dark tick row above
-the band and a hatched span in the panels. An ensemble appears as a shaded min-max band with its
-mean dashed. The caution is printed at the foot of the figure.
+the band and a hatched span in the panels. In the same tick row a light tick marks stations
+inside the training domain but outside the measured-data domain (supported by synthetic baseline
+points only). An ensemble appears as a shaded min-max band with its mean dashed. The caution is
+printed at the foot of the figure.
 """
 from __future__ import annotations
 
@@ -25,6 +27,8 @@ LINE_COLOURS = ("#23395b", "#b5473a", "#4c7d5d", "#8a5a9e", "#c08a1e", "#3c8d99"
 TERRAIN = "#e9e1d2"
 TERRAIN_EDGE = "#b9a98c"
 BAND = "#d8b26e"
+OUTSIDE_DOMAIN = "#3a1010"  #: tick: outside the training domain
+OUTSIDE_MEASURED = "#d9b3b3"  #: lighter tick: outside the measured-data domain only
 
 
 def _terrain(ax, x_km, z):
@@ -97,6 +101,7 @@ def plot_line(stations, band=None, path: str | Path = "line.png", title: str = "
     ax_h.set_ylim(bottom=0)
     ax_p.legend(loc="upper right", fontsize=8, frameon=False)
     # pattern bands, one per closure
+    unmeasured_any = False
     for k, name in enumerate(names):
         d = comp[comp["closure"] == name]
         xk = d["distance"].to_numpy() / 1e3
@@ -104,16 +109,21 @@ def plot_line(stations, band=None, path: str | Path = "line.png", title: str = "
         for a, w, lab in _runs(xk, d["pattern"].to_numpy()):
             ax_b.broken_barh([(a, w)], (y0 + 0.08, 0.62), facecolors=PATTERN_COLOURS.get(lab, "#888888"), lw=0)
         bad = ~d["in_domain"].to_numpy(dtype=bool)
-        for a, w, lab in _runs(xk, bad):
-            if lab:
-                ax_b.broken_barh([(a, max(w, 1e-3 * (xk[-1] - xk[0])))], (y0 + 0.74, 0.16), facecolors="#3a1010", lw=0)
+        unmeasured = (~d["in_measured_domain"].to_numpy(dtype=bool)) if "in_measured_domain" in d else np.zeros_like(bad)
+        unmeasured_any |= bool(unmeasured.any())
+        for mask, colour in ((unmeasured & ~bad, OUTSIDE_MEASURED), (bad, OUTSIDE_DOMAIN)):
+            for a, w, lab in _runs(xk, mask):
+                if lab:
+                    ax_b.broken_barh([(a, max(w, 1e-3 * (xk[-1] - xk[0])))], (y0 + 0.74, 0.16), facecolors=colour, lw=0)
     ax_b.set_yticks([n_bands - 1 - k + 0.45 for k in range(len(names))], names, fontsize=8)
     ax_b.set_ylim(0, n_bands)
     ax_b.set_xlabel("distance along the pipe [km]")
     used = [p for p in PATTERNS if p in set(comp["pattern"])]
     handles = [Patch(color=PATTERN_COLOURS[p], label=p.replace("_", " ")) for p in used]
     if ood_any.any() or (~comp["in_domain"].astype(bool)).any():
-        handles.append(Patch(color="#3a1010", label="outside training domain"))
+        handles.append(Patch(color=OUTSIDE_DOMAIN, label="outside training domain"))
+    if unmeasured_any:
+        handles.append(Patch(color=OUTSIDE_MEASURED, label="outside measured data"))
     ax_b.legend(handles=handles, loc="upper center", bbox_to_anchor=(0.5, -0.55), ncol=min(len(handles), 5),
                 fontsize=8, frameon=False)
     for ax in (ax_p, ax_h):

@@ -5,7 +5,8 @@ Stages (``cfg.stage``):
 ``pretrain``  a new :class:`~closure_nn.closures.neural.NeuralClosure` (``cfg.model``) on the
               baseline ``cfg.closure``; scaler and training domain fitted on the training table.
 ``finetune``  start from ``cfg.init_bundle``; learning rate times ``finetune.lr_factor``; the first
-              ``finetune.freeze_layers`` hidden layers frozen; scaler kept, domain widened.
+              ``finetune.freeze_layers`` hidden layers frozen; scaler kept, domain widened; the
+              stage's own rows (not replayed ones) widen the measured-data domain too.
 ``update``    like ``finetune`` on new rows, plus replay of ``data.replay`` tables (share
               ``data.replay_fraction``, row weight ``data.replay_weight``; a fine-tune may replay
               too, e.g. its synthetic pre-training table, so that the closure keeps the baseline
@@ -104,10 +105,18 @@ def _start_closure(cfg: DictConfig, df: pd.DataFrame, member: int) -> NeuralClos
     closure.freeze_layers(int(cfg.finetune.freeze_layers))
     scaler = FeatureScaler(mean=closure.feature_mean.clone(), std=closure.feature_std.clone())
     feats = state_features(df, closure.baseline, cfg.data.unknown_pattern)
+    d = cfg.domain
     if feats.shape[0]:
-        d = cfg.domain
         new = TrainingDomain.fit(feats, scaler, d.max_points, d.quantile, d.factor, cfg.seed)
         TrainingDomain.from_closure(closure).merged(new, d.max_points, cfg.seed).apply_to(closure)
+    # measured-data domain: the stage's own rows only (replayed rows, e.g. a synthetic pre-training
+    # table, are not measurements of this stage), merged into what earlier stages recorded
+    own = df[~df[REPLAYED].to_numpy(dtype=bool)] if REPLAYED in df.columns else df
+    own_feats = feats if own is df else state_features(own, closure.baseline, cfg.data.unknown_pattern)
+    if own_feats.shape[0]:
+        new = TrainingDomain.fit(own_feats, scaler, d.max_points, d.quantile, d.factor, cfg.seed)
+        TrainingDomain.from_closure(closure, measured=True).merged(new, d.max_points, cfg.seed).apply_to(
+            closure, measured=True)
     return closure
 
 
@@ -120,6 +129,8 @@ def _strategy(t: DictConfig):
 #: column of the combined training table: 1 for the stage's own rows, ``data.replay_weight`` for
 #: replayed rows (multiplies every loss term of the row)
 ROW_WEIGHT = "_row_weight"
+#: column of the combined training table: True for replayed rows (left out of the measured-data domain)
+REPLAYED = "_replayed"
 
 
 def _fit_one(cfg: DictConfig, train_df: pd.DataFrame, val_t: dict, replay_t: dict | None, seed: int,
@@ -265,7 +276,8 @@ def train(cfg: DictConfig, callbacks: list | None = None) -> dict:
             df = bootstrap_table(train_df, seed)
         if replay_df is not None:
             rep = replay_sample(replay_df, float(cfg.data.replay_fraction), seed)
-            df = pd.concat([df.assign(**{ROW_WEIGHT: 1.0}), rep.assign(**{ROW_WEIGHT: float(cfg.data.replay_weight)})],
+            df = pd.concat([df.assign(**{ROW_WEIGHT: 1.0, REPLAYED: False}),
+                            rep.assign(**{ROW_WEIGHT: float(cfg.data.replay_weight), REPLAYED: True})],
                            ignore_index=True)
         out_dir = run_dir if n_members == 1 else run_dir / f"member_{m}"
         jobs.append((df, seed, out_dir, m))
