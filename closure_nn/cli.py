@@ -26,11 +26,23 @@ COMMANDS: dict[str, tuple[str, str]] = {
 }
 
 
-def _split(argv: list[str]) -> tuple[list[str], list[str]]:
+def _split(argv: list[str], value_options: frozenset[str] = frozenset()) -> tuple[list[str], list[str]]:
+    """Split ``key=value`` overrides from the other arguments; a token right after an option that
+    takes a value (``value_options``, e.g. ``--closure learned=path``) stays with that option.
+
+    >>> _split(["--closure", "learned=b", "x=1", "--out", "d", "y=2"], frozenset({"--closure", "--out"}))
+    (['--closure', 'learned=b', '--out', 'd'], ['x=1', 'y=2'])
+    """
     args, overrides = [], []
-    for a in argv:
-        (overrides if ("=" in a and not a.startswith("-")) else args).append(a)
+    for i, a in enumerate(argv):
+        after_option = i > 0 and argv[i - 1] in value_options
+        (overrides if ("=" in a and not a.startswith("-") and not after_option) else args).append(a)
     return args, overrides
+
+
+def _value_options(parser: argparse.ArgumentParser) -> frozenset[str]:
+    """Option strings of ``parser`` that take a value (argparse ``nargs`` other than 0)."""
+    return frozenset(o for act in parser._actions if act.option_strings and act.nargs != 0 for o in act.option_strings)
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -48,6 +60,7 @@ def main(argv: list[str] | None = None) -> int:
     cmd_parser = argparse.ArgumentParser(prog=f"closure-nn {name}", description=COMMANDS[name][1],
                                          epilog="Extra key=value arguments override the command's Hydra config.")
     module.add_arguments(cmd_parser)
+    args, overrides = _split(argv, _value_options(cmd_parser))
     ns = cmd_parser.parse_args(args[1:])
     try:
         return int(module.run(ns, overrides) or 0)

@@ -207,7 +207,8 @@ def test_line_command_prints_the_measured_count(line_dir, capsys):
     from closure_nn.cli import main
 
     save_bundle(closure_with_domains(None), line_dir / "pre")
-    rc = main(["line", str(line_dir / "line.yaml"), f"--closure=pre={line_dir / 'pre'}", "--out",
+    # the option's value written after a space (NAME=SPEC contains '=' but is no config override)
+    rc = main(["line", str(line_dir / "line.yaml"), "--closure", f"pre={line_dir / 'pre'}", "--out",
                str(line_dir / "runs"), "--no-plot"])
     out = capsys.readouterr().out
     assert rc == 0
