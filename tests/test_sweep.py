@@ -12,7 +12,6 @@ from __future__ import annotations
 
 import csv
 import json
-import logging
 import sys
 from pathlib import Path
 
@@ -49,17 +48,10 @@ def table(tmp_path_factory) -> Path:
 @pytest.fixture
 def keep_logging():
     """Hydra sets up logging for every job; put the root logger back for the other tests."""
-    root = logging.getLogger()
-    handlers, level = list(root.handlers), root.level
-    yield
-    for h in list(root.handlers):
-        if h not in handlers:
-            root.removeHandler(h)
-            h.close()
-    for h in handlers:
-        if h not in root.handlers:
-            root.addHandler(h)
-    root.setLevel(level)
+    from closure_nn.training.sweep import restored_logging
+
+    with restored_logging():
+        yield
 
 
 def _summary(sweep: Path) -> list[dict[str, str]]:

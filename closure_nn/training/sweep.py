@@ -165,16 +165,14 @@ def check_jobs(jobs: list[list[str]]) -> None:
 # ---------------------------------------------------------------- running
 
 @contextlib.contextmanager
-def _hydra_argv(argv: list[str]) -> Iterator[None]:
-    """``hydra.main`` reads ``sys.argv``; Hydra also sets up logging for each job. Give it
-    ``argv`` and put both back afterwards (handlers Hydra added are closed)."""
+def restored_logging() -> Iterator[None]:
+    """Put the root logger's handlers and level back afterwards (Hydra sets up logging for each
+    job; the handlers it added are closed)."""
     root = logging.getLogger()
-    old_argv, old_handlers, old_level = sys.argv, list(root.handlers), root.level
-    sys.argv = argv
+    old_handlers, old_level = list(root.handlers), root.level
     try:
         yield
     finally:
-        sys.argv = old_argv
         for h in list(root.handlers):
             if h not in old_handlers:
                 root.removeHandler(h)
@@ -183,6 +181,18 @@ def _hydra_argv(argv: list[str]) -> Iterator[None]:
             if h not in root.handlers:
                 root.addHandler(h)
         root.setLevel(old_level)
+
+
+@contextlib.contextmanager
+def _hydra_argv(argv: list[str]) -> Iterator[None]:
+    """``hydra.main`` reads ``sys.argv``: give it ``argv``, put it and the logging back afterwards."""
+    old_argv = sys.argv
+    sys.argv = argv
+    try:
+        with restored_logging():
+            yield
+    finally:
+        sys.argv = old_argv
 
 
 def run_sweep(overrides: list[str], prog: str = "closure-nn train --sweep") -> int:
