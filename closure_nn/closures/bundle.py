@@ -41,7 +41,9 @@ from ..physics.groups import FEATURE_NAMES
 from .neural import OUTPUT_NAMES, NeuralClosure
 
 BUNDLE_FORMAT = "closure-nn-bundle"
-BUNDLE_VERSION = 1
+BUNDLE_VERSION = 2
+#: versions this code reads: 1 = before the measured-data domain (no ``measured_*`` buffers), 2 = with it
+READABLE_VERSIONS = (1, 2)
 PLAIN_FORMAT = "closure-nn-plain-mlp"
 META_FILE, WEIGHTS_FILE = "bundle.json", "weights.pt"
 REQUIRED_KEYS = ("format", "format_version", "model", "feature_names", "checksums")
@@ -125,9 +127,9 @@ def read_metadata(path: str | os.PathLike) -> dict:
     missing = [k for k in REQUIRED_KEYS if k not in meta]
     if missing:
         raise BundleError(f"{mpath}: bundle metadata lacks the key(s) {', '.join(missing)}")
-    if meta["format"] != BUNDLE_FORMAT or meta["format_version"] != BUNDLE_VERSION:
+    if meta["format"] != BUNDLE_FORMAT or meta["format_version"] not in READABLE_VERSIONS:
         raise BundleError(f"{mpath}: format {meta['format']!r} version {meta['format_version']!r}; this code reads "
-                          f"{BUNDLE_FORMAT!r} version {BUNDLE_VERSION}")
+                          f"{BUNDLE_FORMAT!r} versions {', '.join(map(str, READABLE_VERSIONS))}")
     if list(meta["feature_names"]) != list(FEATURE_NAMES):
         raise BundleError(f"{mpath}: the bundle was trained on features {meta['feature_names']}, this code computes "
                           f"{list(FEATURE_NAMES)}; retrain or use the matching closure-nn version")

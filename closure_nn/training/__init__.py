@@ -14,6 +14,7 @@ _EXPORTS = {
     "accuracy": "metrics", "predict_rows": "metrics",
     "table_tensors": "tables", "split_table": "tables", "bootstrap_table": "tables", "replay_sample": "tables",
     "ClosureTask": "module", "TableDataModule": "datamodule",
+    "run_sweep": "sweep", "plan": "sweep", "summarize": "sweep",
 }
 __all__ = sorted(_EXPORTS)
 
