@@ -1,7 +1,7 @@
 """Training sweeps with Hydra's multirun (closure_nn.training.sweep, ``closure-nn train --sweep``).
 
-Checked against Hydra's documented multirun behaviour (Hydra 1.3 documentation, "Multi-run" and
-"Customizing working directory pattern", hydra.cc): ``--multirun`` with comma-separated values
+Source: Hydra's documented multirun behaviour (Hydra 1.3 documentation, "Multi-run" and
+"Customizing working directory pattern", hydra.cc, read 2026-12-02): ``--multirun`` with comma-separated values
 launches one job per combination, numbered in the order of the cartesian product (first key
 slowest); each job has its own output folder ``hydra.sweep.dir/hydra.sweep.subdir`` (subdir
 ``${hydra.job.num}``) holding ``.hydra/overrides.yaml``; a failed job fails the multirun. The

@@ -131,8 +131,13 @@ def save_ensemble(members: list, path: str | os.PathLike, member_meta: list[dict
         name = f"member_{i}"
         save_bundle(m, p / name, **((member_meta or [{}] * len(members))[i]))
         names.append(name)
+    return _write_description(p, names, metrics)
+
+
+def _write_description(p: Path, names: list[str], metrics: dict | None, **extra) -> Path:
+    """``ensemble.json`` of the ensemble directory ``p`` listing the member folders ``names``."""
     (p / ENSEMBLE_FILE).write_text(json.dumps({"format": ENSEMBLE_FORMAT, "format_version": 1, "members": names,
-                                               "metrics": metrics or {}}, indent=2) + "\n")
+                                               "metrics": metrics or {}, **extra}, indent=2) + "\n")
     return p
 
 
@@ -177,7 +182,4 @@ def combine_ensembles(parts: list[str | os.PathLike], path: str | os.PathLike, m
         name = f"member_{len(names)}"
         shutil.copytree(src, p / name, dirs_exist_ok=True)
         names.append(name)
-    (p / ENSEMBLE_FILE).write_text(json.dumps({"format": ENSEMBLE_FORMAT, "format_version": 1, "members": names,
-                                               "metrics": metrics or {}, "combined_from": [str(x) for x in parts]},
-                                              indent=2) + "\n")
-    return p
+    return _write_description(p, names, metrics, combined_from=[str(x) for x in parts])

@@ -63,6 +63,7 @@ from ..run_folder import write_json
 from .blackbox import BlackBoxRegressor, BlackBoxSettings
 from .loss import LossSettings, uncertainties
 from .metrics import error_summary, measured_state_residuals, pattern_accuracy, solver_state_residuals
+from .processes import map_in_processes
 from .tables import table_tensors
 
 REPO = CONF_DIR.parent
@@ -337,21 +338,10 @@ def development_rows(train_idx: np.ndarray, fraction: float, seed: int) -> tuple
     return np.asarray(train_idx)[fit], np.asarray(train_idx)[dev]
 
 
-def _split_worker(args: tuple) -> dict:
-    torch.set_num_threads(int(args[0].num_threads))
-    return evaluate_split(*args)
-
-
 def _map_splits(jobs: list[tuple], processes: int) -> list[dict]:
     """:func:`evaluate_split` for every argument tuple, in order; with ``processes`` > 1 on that many
     spawned CPU processes (each split is seeded on its own, so the results are the same)."""
-    if processes <= 1 or len(jobs) <= 1:
-        return [evaluate_split(*a) for a in jobs]
-    import multiprocessing as mp
-    from concurrent.futures import ProcessPoolExecutor
-
-    with ProcessPoolExecutor(max_workers=min(processes, len(jobs)), mp_context=mp.get_context("spawn")) as pool:
-        return list(pool.map(_split_worker, jobs))
+    return map_in_processes(evaluate_split, jobs, processes, threads=int(jobs[0][0].num_threads) if jobs else 1)
 
 
 def _split_indices(cfg: DictConfig, lab: pd.DataFrame) -> dict[str, tuple[np.ndarray, np.ndarray, dict]]:

@@ -51,6 +51,7 @@ from ..run_folder import make_run_dir, write_json
 from .loss import LossSettings
 from .metrics import accuracy
 from .module import ClosureTask, EpochTimer
+from .processes import map_in_processes
 from .tables import bootstrap_table, replay_sample, split_table, table_tensors
 
 STAGES = ("pretrain", "finetune", "update")
@@ -195,20 +196,7 @@ def _fit_worker(cfg: DictConfig, df: pd.DataFrame, val_t: dict, replay_t: dict |
                 member: int) -> tuple[NeuralClosure, dict]:
     """One ensemble member in a worker process (same settings as in the parent)."""
     _quiet_lightning()
-    torch.set_num_threads(int(cfg.trainer.num_threads))
     return _fit_one(cfg, df, val_t, replay_t, seed, out_dir, member, [])
-
-
-def _fit_in_processes(cfg: DictConfig, jobs: list, val_t: dict, replay_t: dict | None,
-                      n_proc: int) -> list[tuple[NeuralClosure, dict]]:
-    """Ensemble members on ``n_proc`` spawned CPU processes, results in member order. Each member
-    is seeded as in the sequential loop, so the members are the same as with one process."""
-    import multiprocessing as mp
-    from concurrent.futures import ProcessPoolExecutor
-
-    with ProcessPoolExecutor(max_workers=n_proc, mp_context=mp.get_context("spawn")) as pool:
-        futures = [pool.submit(_fit_worker, cfg, df, val_t, replay_t, seed, out_dir, m) for df, seed, out_dir, m in jobs]
-        return [f.result() for f in futures]
 
 
 def _flatten(d: dict, prefix: str = "") -> dict:
@@ -285,7 +273,9 @@ def train(cfg: DictConfig, callbacks: list | None = None) -> dict:
     if n_proc > 1 and callbacks:
         raise InputError("train: extra callbacks need ensemble.processes = 1 (they cannot be sent to worker processes)")
     if n_proc > 1:
-        fitted = _fit_in_processes(cfg, jobs, val_t, replay_t, n_proc)
+        # members seeded as in the sequential loop below, so they are the same as in one process
+        fitted = map_in_processes(_fit_worker, [(cfg, df, val_t, replay_t, seed, out_dir, m) for df, seed, out_dir, m in jobs],
+                                  n_proc, threads=int(cfg.trainer.num_threads))
     else:
         fitted = [_fit_one(cfg, df, val_t, replay_t, seed, out_dir, m, list(callbacks or []))
                   for df, seed, out_dir, m in jobs]
