@@ -110,6 +110,70 @@ def test_pattern_term_penalises_a_contradicting_equilibrium():
     assert any(p.grad is not None and float(p.grad.abs().sum()) > 0 for p in net.parameters())
 
 
+def test_pattern_term_tolerance_and_rows_with_targets():
+    """The same Kelvin-Helmholtz margin (Taitel & Dukler 1976) in units of ``pattern_tolerance``;
+    rows with a measured holdup feed the term only with ``pattern_rows='observed'``."""
+    base = BaselineClosure()
+    df = make_table(base, 6, seed=5).assign(pgrad=np.nan)
+    sol = solve_separated(table_conditions(df), base)
+    margin = sol.state.u_G / kh_gas_velocity(sol.state.cond, sol.state) - 1
+    stable = (margin < -0.1).numpy()
+    df = df[stable].reset_index(drop=True).assign(pattern="intermittent")
+    m = margin[torch.as_tensor(stable)]
+    net = fitted_model(df.assign(pattern="stratified_smooth"))
+    w = {k: 0.0 for k in TERMS} | {"pattern": 1.0}
+    only = ClosureLoss(LossSettings(weights=w, pattern_margin=0.05, pattern_tolerance=0.05))
+    _, t, c = only(net, table_tensors(df))
+    assert c["pattern"] == 0  # every row has a holdup
+    _, t, c = only(net, table_tensors(df.assign(holdup=np.nan)))
+    assert c["pattern"] == len(df)
+    assert float(t["pattern"]) == pytest.approx(float((((0.05 - m) / 0.05) ** 2).mean()), rel=1e-9)
+    every = ClosureLoss(LossSettings(weights=w, pattern_margin=0.05, pattern_tolerance=0.05, pattern_rows="observed"))
+    _, t_all, c_all = every(net, table_tensors(df))
+    assert c_all["pattern"] == len(df) and float(t_all["pattern"]) == pytest.approx(float(t["pattern"]), rel=1e-9)
+    with pytest.raises(ValueError, match="pattern_rows"):
+        LossSettings(pattern_rows="all")
+
+
+def test_rows_of_unknown_pattern_take_the_predicted_configuration():
+    """``unknown_pattern='predicted'``: a row without a pattern feeds the terms a row observed in
+    the pattern the closure predicts would feed (definition in the module docstring); the
+    predicted pattern is the point solver's (Taitel & Dukler 1976 near horizontal)."""
+    from closure_nn.data.features import KIND_PREDICTED, kind_codes
+    from closure_nn.physics.point import solve_points
+    from closure_nn.physics.vocabulary import PATTERNS
+
+    base = BaselineClosure()
+    strat = make_table(base, 10, seed=11)
+    ann = make_table(base, 6, seed=12, kind="annular")
+    df = pd.concat([strat, ann], ignore_index=True)
+    pred = solve_points(table_conditions(df), base).pattern
+    df["pattern"] = [PATTERNS[int(k)] for k in pred]
+    assert len(set(df["pattern"])) >= 2  # separated and non-separated predictions alike
+    # observed as predicted vs not observed at all; the pattern term is left out (it needs an observation)
+    df = df.assign(holdup=df["holdup"] + 0.003, pgrad=df["pgrad"] * 1.04)  # nonzero misfits
+    net = fitted_model(df)
+    w = {**ALL_ON, "pattern": 0.0}
+    t_obs = table_tensors(df)
+    t_unk = table_tensors(df.assign(pattern=np.nan), unknown_pattern="predicted")
+    assert bool((t_unk["kind"] == KIND_PREDICTED).all())
+    assert kind_codes(pd.Series([np.nan, "intermittent"]), 2, "predicted").tolist() == [KIND_PREDICTED, -1]
+    loss = ClosureLoss(LossSettings(weights=w))
+    total_o, terms_o, counts_o = loss(net, t_obs)
+    total_u, terms_u, counts_u = loss(net, t_unk)
+    for k in ("phase_residual", "data_holdup", "data_pgrad", "prior"):
+        assert counts_u[k] == counts_o[k] > 0
+        assert float(terms_u[k]) == pytest.approx(float(terms_o[k]), rel=1e-9)
+    # the mapping pattern -> configuration, on the states of the classify() example
+    from closure_nn.data.features import predicted_kind_codes
+    from closure_nn.physics.conditions import make_conditions
+    c = make_conditions(vsl=[0.01, 0.3, 0.1], vsg=[0.5, 1.0, 30.0], D=0.05)
+    assert predicted_kind_codes(c, BaselineClosure("taitel_dukler", "smooth")).tolist() == [0, -1, 1]
+    # the skip rule leaves the same rows out of every term
+    _, _, counts_s = loss(net, table_tensors(df.assign(pattern=np.nan), unknown_pattern="skip"))
+    assert counts_s["data_holdup"] == 0 and counts_s["phase_residual"] == 0
+
+
 def test_prior_and_smoothness_grow_away_from_the_baseline():
     base = BaselineClosure()
     df = make_table(base, 10)

@@ -43,7 +43,10 @@ from .schema import to_conditions
 #: integer code of the separated configuration of a row (-1: not a separated-flow row)
 KIND_CODE = {STRATIFIED: 0, ANNULAR: 1}
 KINDS = (STRATIFIED, ANNULAR)
-UNKNOWN_PATTERN_RULES = ("skip", "stratified")
+#: kind code of a row whose configuration is decided by a closure's predicted pattern
+#: (``unknown_pattern='predicted'``; :func:`resolve_kinds`)
+KIND_PREDICTED = -2
+UNKNOWN_PATTERN_RULES = ("skip", "stratified", "predicted")
 
 
 def table_conditions(df: pd.DataFrame) -> Conditions:
@@ -56,7 +59,10 @@ def kind_codes(patterns: pd.Series | None, n: int, unknown_pattern: str = "skip"
 
     ``stratified_smooth``/``stratified_wavy`` -> stratified, ``annular`` -> annular, any other
     pattern -> -1. A missing pattern (NaN / empty) follows ``unknown_pattern``: ``'skip'`` (-1,
-    the row feeds no separated-flow term) or ``'stratified'``.
+    the row feeds no separated-flow term), ``'stratified'``, or ``'predicted'``
+    (:data:`KIND_PREDICTED`: the configuration of the pattern that a closure predicts for the
+    row, decided when the row is used, :func:`resolve_kinds`; as the point solver does when it
+    scores such a row).
     """
     if unknown_pattern not in UNKNOWN_PATTERN_RULES:
         raise ValueError(f"unknown_pattern must be one of {UNKNOWN_PATTERN_RULES}, got {unknown_pattern!r}")
@@ -65,12 +71,44 @@ def kind_codes(patterns: pd.Series | None, n: int, unknown_pattern: str = "skip"
     out = np.full(n, -1, dtype=np.int64)
     for i, p in enumerate(patterns.tolist()):
         if p is None or (isinstance(p, float) and np.isnan(p)) or p == "":
-            out[i] = KIND_CODE[STRATIFIED] if unknown_pattern == "stratified" else -1
+            out[i] = {"stratified": KIND_CODE[STRATIFIED], "predicted": KIND_PREDICTED}.get(unknown_pattern, -1)
         elif p in STRATIFIED_PATTERNS:
             out[i] = KIND_CODE[STRATIFIED]
         elif p == ANNULAR_PATTERN:
             out[i] = KIND_CODE[ANNULAR]
     return torch.as_tensor(out)
+
+
+def predicted_kind_codes(cond: Conditions, closure, select: str = "thinnest", n_grid: int = 40) -> torch.Tensor:
+    """Kind codes ``(N,)`` of the pattern ``closure`` predicts for ``cond`` (no gradient).
+
+    The pattern is the point solver's (:func:`closure_nn.physics.patterns.classify` at the
+    closure's stratified equilibrium: Taitel & Dukler 1976 near horizontal, Taitel, Barnea &
+    Dukler 1980 upward from 20 deg); stratified smooth/wavy -> stratified, annular -> annular,
+    any other pattern (or no stratified root near horizontal) -> -1.
+    """
+    from ..physics.patterns import classify
+    from ..physics.vocabulary import CODE
+
+    with torch.no_grad():
+        code = classify(cond, solve_separated(cond, closure, STRATIFIED, select=select, n_grid=n_grid))
+    out = torch.full(code.shape, -1, dtype=torch.int64)
+    for p in STRATIFIED_PATTERNS:
+        out = torch.where(code == CODE[p], KIND_CODE[STRATIFIED], out)
+    return torch.where(code == CODE[ANNULAR_PATTERN], KIND_CODE[ANNULAR], out)
+
+
+def resolve_kinds(kinds: torch.Tensor, cond: Conditions, closure, select: str = "thinnest",
+                  n_grid: int = 40) -> torch.Tensor:
+    """``kinds (N,)`` with every :data:`KIND_PREDICTED` entry replaced by the kind of the pattern
+    ``closure`` predicts for that row (:func:`predicted_kind_codes`); unchanged (the same tensor)
+    when there is none. ``cond`` are the conditions of all N rows."""
+    pred = kinds == KIND_PREDICTED
+    if not bool(pred.any()):
+        return kinds
+    out = kinds.clone()
+    out[pred] = predicted_kind_codes(cond[pred], closure, select, n_grid)
+    return out
 
 
 def frac_from_holdup(holdup: torch.Tensor, kind: str) -> torch.Tensor:
@@ -91,10 +129,12 @@ def table_states(df: pd.DataFrame, baseline, unknown_pattern: str = "skip") -> l
 
     At the measured holdup where there is one, else at the ``baseline`` closure's equilibrium
     (thinnest root; rows without a root are left out). Rows that are not separated flow are
-    left out. No gradients.
+    left out; with ``unknown_pattern='predicted'`` a row without an observed pattern counts as the
+    configuration the ``baseline`` predicts for it. No gradients.
     """
     cond = table_conditions(df)
     kinds = kind_codes(df["pattern"] if "pattern" in df.columns else None, len(df), unknown_pattern)
+    kinds = resolve_kinds(kinds, cond, baseline)
     holdup = torch.tensor(pd.to_numeric(df["holdup"], errors="coerce").to_numpy(dtype=np.float64)) \
         if "holdup" in df.columns else torch.full((len(df),), float("nan"), dtype=torch.float64)
     states: list[LocalState] = []

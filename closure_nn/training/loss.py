@@ -7,7 +7,11 @@ measured / not given), the separated configuration ``kind`` (codes of
 :data:`closure_nn.data.features.KIND_CODE`, -1 = not separated flow), the observed ``pattern``
 (codes of :data:`closure_nn.physics.vocabulary.CODE`, -1 = not observed) and a row ``weight``;
 optionally ``frac_measured``, the level at the measured holdup (:func:`measured_frac`), which the
-training datamodule computes once per row instead of once per batch.
+training datamodule computes once per row instead of once per batch. Rows of kind
+:data:`~closure_nn.data.features.KIND_PREDICTED` (no observed pattern, ``unknown_pattern='predicted'``)
+take, at every evaluation of the loss, the configuration of the pattern the closure in training
+predicts for them (:func:`~closure_nn.data.features.resolve_kinds`), so they feed every term
+that a row observed in that pattern would feed, except the pattern term.
 
 Terms (each a weighted mean over the rows it applies to; weights in ``conf/loss/*.yaml``):
 
@@ -42,12 +46,19 @@ Terms (each a weighted mean over the rows it applies to; weights in ``conf/loss/
     by the implicit function theorem), misfit :math:`((\hat H - H)/\sigma_H)^2` and
     :math:`((\hat p - p)/\sigma_p)^2`. Rows without an equilibrium root are left out (counted).
 ``pattern``
-    Rows with only a pattern observed, near-horizontal (theta < ``patterns.THETA_STEEP``): the
+    Near-horizontal rows (theta < ``patterns.THETA_STEEP``) with an observed pattern: by default
+    (``pattern_rows='pattern_only'``) only those with neither holdup nor pgrad measured; with
+    ``pattern_rows='observed'`` every row with an observed pattern, so that rows observed
+    intermittent, annular or dispersed bubble - which have no separated configuration and feed
+    no other term - still tell the closure where stratified flow must be unstable. The
     Kelvin-Helmholtz margin :math:`m = u_G/u_{G,KH} - 1` of the closure's stratified equilibrium
     (:func:`closure_nn.physics.patterns.kh_gas_velocity`, Taitel & Dukler 1976). Observed
-    stratified but predicted unstable: :math:`\max(m + \delta, 0)^2`; observed intermittent,
-    annular or dispersed bubble but predicted stable: :math:`\max(\delta - m, 0)^2`, with the
-    margin :math:`\delta` = ``pattern_margin``.
+    stratified but predicted unstable: :math:`[\max(m + \delta, 0)/t]^2`; observed intermittent,
+    annular or dispersed bubble but predicted stable: :math:`[\max(\delta - m, 0)/t]^2`, with the
+    margin :math:`\delta` = ``pattern_margin`` and the tolerance :math:`t` = ``pattern_tolerance``
+    (the shortfall of margin that counts as much as a one-sigma misfit of a data term; with
+    :math:`t = 1` a wrong pattern costs only :math:`\sim\delta^2`, far less than one noisy
+    holdup reading).
 ``prior``
     :math:`\sum_k \lambda_k (\ln f_k - \ln f_{k,\mathrm{base}})^2` at the measured (or, without
     holdup, solved) states: pulls the closure toward the mechanistic baseline where data are
@@ -78,7 +89,7 @@ import torch
 from torch import nn
 
 from ..closures.neural import OUTPUT_NAMES, NeuralClosure, NeuralEvaluation
-from ..data.features import KIND_CODE, KINDS, frac_from_holdup
+from ..data.features import KIND_CODE, KINDS, frac_from_holdup, resolve_kinds
 from ..physics.conditions import FIELD_NAMES, Conditions
 from ..physics.geometry import STRATIFIED
 from ..physics.groups import closure_features
@@ -92,6 +103,8 @@ from ..physics.vocabulary import ANNULAR as ANNULAR_PATTERN
 TERMS = ("phase_residual", "combined_residual", "data_holdup", "data_pgrad", "pattern", "prior", "smooth")
 #: default per-factor prior weights (see "Identifiability" in the module docstring)
 PRIOR_FACTORS = {"f_wl": 1.0, "f_wg": 1.0, "f_i": 0.01}
+#: which rows feed the pattern term (see ``pattern`` in the module docstring)
+PATTERN_ROWS = ("pattern_only", "observed")
 _STRAT_CODES = tuple(CODE[p] for p in STRATIFIED_PATTERNS)
 _UNSTABLE_CODES = (CODE[INTERMITTENT], CODE[ANNULAR_PATTERN], CODE[DISPERSED_BUBBLE])
 
@@ -109,6 +122,8 @@ class LossSettings:
     pgrad_rel_sd: float = 0.05  # [-]
     pgrad_sd_floor: float = 1.0  # [Pa/m]
     pattern_margin: float = 0.05  # [-]
+    pattern_tolerance: float = 1.0  # [-] margin shortfall that counts as one unit of the pattern term
+    pattern_rows: str = "pattern_only"  # 'pattern_only' | 'observed' (see the module docstring)
     effective_variance: bool = False  # propagate holdup_sd into the phase-residual scale
     #: Cauchy scale c of the phase-residual term (None: plain squares); see :func:`cauchy`
     residual_robust_scale: float | None = None
@@ -126,6 +141,10 @@ class LossSettings:
         self.prior_factors = {k: float(self.prior_factors.get(k, PRIOR_FACTORS[k])) for k in OUTPUT_NAMES}
         if any(v < 0 for v in self.prior_factors.values()):
             raise ValueError(f"prior_factors must be >= 0, got {self.prior_factors}")
+        if self.pattern_rows not in PATTERN_ROWS:
+            raise ValueError(f"pattern_rows must be one of {', '.join(PATTERN_ROWS)}, got {self.pattern_rows!r}")
+        if not self.pattern_tolerance > 0:
+            raise ValueError(f"pattern_tolerance must be positive, got {self.pattern_tolerance}")
 
     def prior_vector(self) -> torch.Tensor:
         """``(3,)`` float64 weights lambda_k in the order f_wl, f_wg, f_i."""
@@ -262,6 +281,10 @@ class ClosureLoss(nn.Module):
 
     def forward(self, closure: NeuralClosure, batch: dict[str, torch.Tensor]):
         cfg, acc = self.settings, _Acc()
+        # rows of unknown pattern under unknown_pattern='predicted': the configuration of the
+        # pattern the closure in training predicts for them now (no gradient through the choice)
+        kinds = resolve_kinds(batch["kind"], batch_conditions(batch), closure, cfg.select, cfg.n_grid) \
+            if bool((batch["kind"] < -1).any()) else batch["kind"]
         w_row = batch["weight"]
         sh, sp = uncertainties(batch, cfg)
         H, P = batch["holdup"], batch["pgrad"]
@@ -279,13 +302,16 @@ class ClosureLoss(nn.Module):
         # smoothness penalty: (state, row weights, evaluation or None = not evaluated yet)
         reg_states: list[tuple[LocalState, torch.Tensor, NeuralEvaluation | None]] = []
         for kind in KINDS:
-            sel = batch["kind"] == KIND_CODE[kind]
+            sel = kinds == KIND_CODE[kind]
             # --- (1), (2): residuals at the measured state
             meas = sel & state_h
             if meas.any():
                 im = meas.nonzero().squeeze(-1)  # row indices: one mask conversion for every column
                 c = batch_conditions(batch, im)
                 frac = frac_from_holdup(H[im], kind) if frac_meas is None else frac_meas[im]
+                if frac_meas is not None and bool((kinds[im] != batch["kind"][im]).any()):
+                    # rows whose kind was just predicted have no precomputed level
+                    frac = torch.where(kinds[im] != batch["kind"][im], frac_from_holdup(H[im], kind).detach(), frac)
                 s = local_state(c, frac, kind)
                 ev = closure.evaluate(s, input_grad=need_smooth) if use_res else None
                 reg_states.append((s, w_row[im], ev))
@@ -376,7 +402,9 @@ class ClosureLoss(nn.Module):
         unstable = torch.zeros_like(strat)
         for code in _UNSTABLE_CODES:
             unstable |= pat == code
-        rows = ~has_target & (strat | unstable) & (batch["theta"] < THETA_STEEP)
+        rows = (strat | unstable) & (batch["theta"] < THETA_STEEP)
+        if self.settings.pattern_rows == "pattern_only":
+            rows = rows & ~has_target
         if not rows.any():
             return 0
         c = batch_conditions(batch, rows)
@@ -384,6 +412,6 @@ class ClosureLoss(nn.Module):
         ok = sol.found
         m = sol.state.u_G / kh_gas_velocity(c, sol.state).clamp_min(1e-12) - 1
         d = self.settings.pattern_margin
-        pen = torch.where(strat[rows], torch.relu(m + d), torch.relu(d - m)) ** 2
+        pen = (torch.where(strat[rows], torch.relu(m + d), torch.relu(d - m)) / self.settings.pattern_tolerance) ** 2
         acc.add("pattern", pen[ok], batch["weight"][rows][ok])
         return int((~ok).sum())

@@ -1,7 +1,9 @@
 """Accuracy of a closure on a table: holdup and pressure-gradient errors of its equilibrium (no Lightning).
 
 For every separated-flow row with a measured target the closure's equilibrium is solved
-(:func:`~closure_nn.physics.holdup_roots.solve_separated`, kind from the pattern) and compared:
+(:func:`~closure_nn.physics.holdup_roots.solve_separated`, kind from the observed pattern, or, for
+rows of unknown pattern under ``unknown_pattern='predicted'``, from the pattern the closure
+predicts: :func:`~closure_nn.data.features.resolve_kinds`) and compared:
 
 * ``holdup_rmse``, ``holdup_mae`` [-]: absolute holdup errors,
 * ``pgrad_rel_rmse`` [-]: RMS of (predicted / measured - 1) over rows with |pgrad| >= 1 Pa/m,
@@ -19,7 +21,7 @@ import math
 import numpy as np
 import torch
 
-from ..data.features import KIND_CODE, KINDS
+from ..data.features import KIND_CODE, KINDS, resolve_kinds
 from ..physics.holdup_roots import solve_separated
 from .loss import batch_conditions
 
@@ -27,26 +29,28 @@ PGRAD_FLOOR = 1.0  # Pa/m: rows with a smaller |pgrad| are left out of the relat
 
 
 def predict_rows(closure, t: dict[str, torch.Tensor], select: str = "thinnest") -> dict[str, torch.Tensor]:
-    """Predicted ``holdup``, ``pgrad`` and ``found`` ``(N,)`` for the separated rows of ``t`` (NaN elsewhere)."""
+    """Predicted ``holdup``, ``pgrad`` and ``found`` ``(N,)`` for the separated rows of ``t`` (NaN elsewhere),
+    and ``kind`` ``(N,)``, the kind codes used (predicted ones resolved with ``closure``)."""
     n = t["vsl"].shape[0]
     hold = torch.full((n,), float("nan"), dtype=torch.float64)
     pg = torch.full_like(hold, float("nan"))
     found = torch.zeros(n, dtype=torch.bool)
     with torch.no_grad():
+        kinds = resolve_kinds(t["kind"], batch_conditions(t), closure, select)
         for kind in KINDS:
-            sel = t["kind"] == KIND_CODE[kind]
+            sel = kinds == KIND_CODE[kind]
             if sel.any():
                 sol = solve_separated(batch_conditions(t, sel), closure, kind, select=select)
                 hold[sel] = torch.where(sol.found, sol.holdup, torch.nan)
                 pg[sel] = torch.where(sol.found, sol.pgrad.total, torch.nan)
                 found[sel] = sol.found
-    return {"holdup": hold, "pgrad": pg, "found": found}
+    return {"holdup": hold, "pgrad": pg, "found": found, "kind": kinds}
 
 
 def accuracy(closure, t: dict[str, torch.Tensor], select: str = "thinnest") -> dict[str, float]:
     """Holdup and pgrad errors of ``closure`` on the tensor table ``t`` (see module docstring)."""
     pred = predict_rows(closure, t, select)
-    sep = t["kind"] >= 0
+    sep = pred["kind"] >= 0
     has_h, has_p = torch.isfinite(t["holdup"]) & sep, torch.isfinite(t["pgrad"]) & sep
     rows = has_h | has_p
     ok = pred["found"]
