@@ -105,7 +105,7 @@ def test_pattern_term_penalises_a_contradicting_equilibrium():
     assert c_ok["pattern"] == len(df) and float(t_ok["pattern"]) == 0.0
     total, t_bad, _ = loss(net, table_tensors(df.assign(pattern="intermittent")))
     m = margin[torch.as_tensor(stable)]
-    assert float(t_bad["pattern"]) == pytest.approx(float(((0.05 - m) ** 2).mean()), rel=1e-9)
+    assert float(t_bad["pattern"]) == pytest.approx(float((((0.05 - m) / 0.05) ** 2).mean()), rel=1e-9)
     total.backward()
     assert any(p.grad is not None and float(p.grad.abs().sum()) > 0 for p in net.parameters())
 

@@ -56,9 +56,11 @@ Terms (each a weighted mean over the rows it applies to; weights in ``conf/loss/
     stratified but predicted unstable: :math:`[\max(m + \delta, 0)/t]^2`; observed intermittent,
     annular or dispersed bubble but predicted stable: :math:`[\max(\delta - m, 0)/t]^2`, with the
     margin :math:`\delta` = ``pattern_margin`` and the tolerance :math:`t` = ``pattern_tolerance``
-    (the shortfall of margin that counts as much as a one-sigma misfit of a data term; with
-    :math:`t = 1` a wrong pattern costs only :math:`\sim\delta^2`, far less than one noisy
-    holdup reading).
+    (the shortfall of margin that counts as much as a one-sigma misfit of a data term; default
+    0.05, the margin itself. Before this scale existed the penalty was the bare
+    :math:`[\max(\cdot, 0)]^2`, i.e. :math:`t = 1`: a wrong pattern then cost only
+    :math:`\sim\delta^2 = 0.0025`, far less than one noisy holdup reading, and the term did
+    next to nothing; docs/evaluation_log.md, session 3).
 ``prior``
     :math:`\sum_k \lambda_k (\ln f_k - \ln f_{k,\mathrm{base}})^2` at the measured (or, without
     holdup, solved) states: pulls the closure toward the mechanistic baseline where data are
@@ -122,7 +124,7 @@ class LossSettings:
     pgrad_rel_sd: float = 0.05  # [-]
     pgrad_sd_floor: float = 1.0  # [Pa/m]
     pattern_margin: float = 0.05  # [-]
-    pattern_tolerance: float = 1.0  # [-] margin shortfall that counts as one unit of the pattern term
+    pattern_tolerance: float = 0.05  # [-] margin shortfall that counts as one unit of the pattern term
     pattern_rows: str = "pattern_only"  # 'pattern_only' | 'observed' (see the module docstring)
     effective_variance: bool = False  # propagate holdup_sd into the phase-residual scale
     #: Cauchy scale c of the phase-residual term (None: plain squares); see :func:`cauchy`
