@@ -47,7 +47,8 @@ def trained_like(seed: int = 0, **kw) -> NeuralClosure:
     return net
 
 
-@pytest.mark.parametrize("kw", [{}, {"inputs": WALL_ONLY}, {"mode": "direct"}, {"learn": ["f_i"]}])
+@pytest.mark.parametrize("kw", [{}, {"inputs": WALL_ONLY}, {"mode": "direct"}, {"learn": ["f_i"]},
+                                {"inputs": WALL_ONLY, "base_input": True}])
 def test_round_trip_is_exact(tmp_path, kw):
     net = trained_like(**kw)
     save_bundle(net, tmp_path / "b", metrics={"val.holdup_rmse": 0.01}, provenance={"stage": "pretrain"})
@@ -110,12 +111,16 @@ def _silu(x):
 
 def test_plain_export_gives_the_same_friction_factors(tmp_path):
     """Evaluate the exported JSON with numpy from its documented formula (independent code)."""
-    for kw in ({"inputs": WALL_ONLY}, {"mode": "direct"}):
+    for kw in ({"inputs": WALL_ONLY}, {"mode": "direct"}, {"inputs": WALL_ONLY, "base_input": True},
+               {"base_input": True}):
         net = trained_like(seed=3, **kw)
         spec = json.loads(export_plain(net, tmp_path / "plain.json").read_text())
         s = states()
         x = closure_features(s).detach().numpy()
         z = (x - np.array(spec["scaler"]["mean"])) / np.array(spec["scaler"]["std"])
+        fb = np.stack([t.detach().numpy() for t in BaselineClosure(**spec["baseline"])(s)], axis=-1)
+        if spec["base_input"]:
+            z = np.concatenate([z, np.log(fb[..., 2:3] / fb[..., 1:2])], axis=-1)
         o = np.zeros(x.shape[:-1] + (3,))
         for br in spec["branches"]:
             y = z[..., br["inputs"]]
@@ -125,7 +130,6 @@ def test_plain_export_gives_the_same_friction_factors(tmp_path):
                     y = _silu(y)
             o[..., br["outputs"]] = y
         if spec["mode"] == "correction":
-            fb = np.stack([t.detach().numpy() for t in BaselineClosure(**spec["baseline"])(s)], axis=-1)
             f = fb * np.exp(spec["bound"] * np.tanh(o))
         else:
             span = spec["direct_span"]

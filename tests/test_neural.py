@@ -76,6 +76,33 @@ def test_wall_factors_see_only_their_inputs():
     assert bool((jac[2].abs().sum(0) > 0).all())
 
 
+def test_baseline_input_is_the_andritsos_hanratty_enhancement():
+    """``base_input``: the f_i branch reads ln(f_i,base / f_WG,base) as one more input, here the
+    Andritsos & Hanratty (1987) enhancement 1 + 15 sqrt(h/D) (v_SG / v_SG,t - 1) above
+    v_SG,t = 5 m/s sqrt(1.2 / rho_G) and 0 below it (constants as in
+    closure_nn.closures.correlations, from memory). The untrained model is still the baseline,
+    and the new input does reach f_i."""
+    c = make_conditions(vsl=0.05, vsg=[2.0, 8.0, 15.0], D=0.05, roughness=5e-5)
+    s = local_state(c, torch.tensor([0.3, 0.2, 0.1], dtype=torch.float64), "stratified")
+    net = NeuralClosure(hidden=(8,), inputs=WALL_ONLY, base_input=True)
+    assert [len(ix) for ix in net.branch_inputs] == [3, 3, len(FEATURE_NAMES) + 1]
+    base = BaselineClosure()(s)
+    assert torch.equal(net(s).f_i, base.f_i)
+    ev = net.evaluate(s)
+    beta = ev.inputs[2][..., -1]
+    u_t = 5.0 * math.sqrt(1.2 / 1.2)  # make_conditions: air at 1.2 kg/m3
+    h = s.geom.frac
+    expect = torch.log(1 + 15 * torch.sqrt(h) * torch.clamp(c.vsg / u_t - 1, min=0.0))
+    assert torch.allclose(beta, expect, rtol=1e-10, atol=1e-12) and float(beta[0]) == 0.0
+    net = randomise(net, scale=1.0)
+    z = net.evaluate(s, input_grad=True)
+    (dz,) = torch.autograd.grad(z.g[..., 2].sum(), z.inputs[2])
+    assert bool((dz[..., -1].abs() > 0).all())
+    # a shared network reads it too; without the option nothing changes
+    assert len(NeuralClosure(hidden=(4,), base_input=True).branch_inputs[0]) == len(FEATURE_NAMES) + 1
+    assert len(NeuralClosure(hidden=(4,)).branch_inputs[0]) == len(FEATURE_NAMES)
+
+
 def test_learning_only_the_interface_keeps_the_baseline_walls():
     s = grid_state()
     net = randomise(NeuralClosure(hidden=(8,), learn=["f_i"]))

@@ -188,8 +188,9 @@ def export_plain(closure: NeuralClosure, path: str | os.PathLike) -> Path:
     """Write the network as plain JSON for non-Python solvers; returns the file path.
 
     Evaluation (all float64), for features x (11 values, definitions in
-    :mod:`closure_nn.physics.groups`) and the baseline factors f_base (correction mode):
-    ``z = (x - mean) / std``; each branch takes ``z[inputs]``, applies its layers
+    :mod:`closure_nn.physics.groups`) and the baseline factors f_base (f_wl, f_wg, f_i):
+    ``z = (x - mean) / std``; where ``base_input`` is true, z gets a 12th entry (index 11),
+    ``ln(f_base[f_i] / f_base[f_wg])``, not standardised; each branch takes ``z[inputs]``, applies its layers
     ``y = act(W y + b)`` (no activation after the last) and yields the outputs listed in
     ``outputs`` (indices into f_wl, f_wg, f_i), giving o; correction mode
     ``f = f_base * exp(bound * tanh(o))``, direct mode ``f = exp(log_f_ref + span * tanh(o / span))``;
@@ -208,7 +209,7 @@ def export_plain(closure: NeuralClosure, path: str | os.PathLike) -> Path:
     spec = {
         "format": PLAIN_FORMAT, "format_version": 1, "feature_names": list(FEATURE_NAMES),
         "outputs": list(OUTPUT_NAMES), "activation": closure.activation, "mode": closure.mode,
-        "bound": closure.bound_vec.tolist(), "direct_span": closure.direct_span, "log_f_ref": closure.log_f_ref.tolist(),
+        "base_input": closure.base_input, "bound": closure.bound_vec.tolist(), "direct_span": closure.direct_span, "log_f_ref": closure.log_f_ref.tolist(),
         "baseline": closure.hparams["baseline"],
         "scaler": {"mean": closure.feature_mean.tolist(), "std": closure.feature_std.tolist()},
         "branches": branches,

@@ -19,6 +19,16 @@ Two output modes (``mode``):
 
 Positivity holds by construction in both modes (exponential of a finite number).
 
+Baseline input (``base_input=True``): the branches that predict f_i also read
+:math:`\beta = \ln(f_{i,\mathrm{base}}/f_{WG,\mathrm{base}})`, the baseline's own interfacial
+enhancement over the gas wall (not standardised; 0 for a smooth interface, and, with the
+Andritsos & Hanratty (1987) interface, 0 below its gas-velocity threshold and rising above it).
+A correction of a baseline with a switch has a kink where the switch is, at a place set by
+dimensional quantities (Andritsos-Hanratty: :math:`v_{SG}\sqrt{\rho_G/\rho_0}` = 5 m/s) that
+the dimensionless groups do not locate; the input tells the network where the baseline's switch
+lies. Feeding the model that is being corrected to the correcting network is common practice
+in residual learning.
+
 The training domain (per-feature bounds plus a nearest-neighbour distance threshold in the
 standardised feature space, fitted by :mod:`closure_nn.data.features`) is stored in buffers, so it
 travels with the weights; :meth:`NeuralClosure.in_domain` flags states outside it.
@@ -54,7 +64,8 @@ class NeuralEvaluation:
     the training loss reuses (so it evaluates the features, the network and the baseline once).
 
     Shapes: ``factors``, ``base`` and ``g`` are ``(*batch, 3)`` in the order f_WL, f_WG, f_i;
-    ``inputs`` holds the standardised features ``(*batch, F)`` once per branch (one shared tensor,
+    ``inputs`` holds the network input ``(*batch, F)`` (the standardised features, plus the baseline
+    input as column F - 1 with ``base_input``) once per branch (one shared tensor,
     or one gradient leaf per branch with ``input_grad=True``) and ``g`` is computed from them.
     """
 
@@ -113,6 +124,9 @@ class NeuralClosure(Closure):
         output on its own features; absent, one shared MLP with three outputs. Restricting the
         wall factors to wall variables (their Reynolds number, roughness, level) mirrors the
         single-phase form of wall friction in two-fluid models (Taitel & Dukler 1976).
+    base_input : bool
+        The f_i branches also read the baseline's ln(f_i / f_WG) (module docstring). Default False
+        (bundles written before this option load with it off).
     learn : sequence of str, optional
         The factors the network predicts (default all three); the others are the baseline's.
         Holdup and pressure-gradient data give two balance equations per state for three
@@ -135,7 +149,7 @@ class NeuralClosure(Closure):
     def __init__(self, hidden: Sequence[int] = (32, 32), activation: str = "silu", mode: str = "correction",
                  bound: float | dict = 1.0, direct_span: float = 6.0,
                  baseline: BaselineClosure | dict | None = None, inputs: dict | None = None,
-                 learn: Sequence[str] | None = None) -> None:
+                 learn: Sequence[str] | None = None, base_input: bool = False) -> None:
         super().__init__()
         if mode not in MODES:
             raise ValueError(f"unknown neural closure mode {mode!r}; known: {', '.join(MODES)}")
@@ -152,6 +166,7 @@ class NeuralClosure(Closure):
             baseline = BaselineClosure(**baseline)
         self.baseline = baseline
         self.mode, self.activation, self.direct_span = mode, activation, float(direct_span)
+        self.base_input = bool(base_input)
         # one bound per factor (f_wl, f_wg, f_i): |ln(f / f_base)| <= bound in correction mode
         self.bound = dict(zip(OUTPUT_NAMES, bounds)) if isinstance(bound, dict) else float(bound)
         self.hidden = tuple(int(h) for h in hidden)
@@ -162,9 +177,12 @@ class NeuralClosure(Closure):
         if self.learn != list(OUTPUT_NAMES) and mode != "correction":
             raise ValueError("learn: a subset of the factors needs mode='correction'")
         learned = [OUTPUT_NAMES.index(k) for k in self.learn]
+        # column n_in of the network input is the baseline input (base_input=True), for f_i branches
+        i_fi = OUTPUT_NAMES.index("f_i")
+        extra = lambda outs: [n_in] if self.base_input and i_fi in outs else []  # noqa: E731
         if inputs is None:
             self.inputs = None
-            branches = [(list(range(n_in)), learned)]
+            branches = [(list(range(n_in)) + extra(learned), learned)]
         else:
             unknown = set(inputs) - set(OUTPUT_NAMES)
             if unknown:
@@ -178,7 +196,7 @@ class NeuralClosure(Closure):
                 bad = [n for n in names if n not in FEATURE_NAMES]
                 if bad:
                     raise ValueError(f"inputs.{k}: unknown feature(s) {', '.join(bad)}; known: {', '.join(FEATURE_NAMES)}")
-                branches.append(([FEATURE_NAMES.index(n) for n in names], [j]))
+                branches.append(([FEATURE_NAMES.index(n) for n in names] + extra([j]), [j]))
         self.branch_inputs = [b[0] for b in branches]
         # per branch: None where it reads every feature in order (no copy), else an index tensor
         self._branch_index = [None if idx == list(range(n_in)) else torch.tensor(idx, dtype=torch.int64)
@@ -221,7 +239,7 @@ class NeuralClosure(Closure):
         b = self.baseline
         return {"hidden": list(self.hidden), "activation": self.activation, "mode": self.mode,
                 "bound": self.bound, "direct_span": self.direct_span, "inputs": self.inputs,
-                "learn": list(self.learn),
+                "learn": list(self.learn), "base_input": self.base_input,
                 "baseline": {"wall": b.wall_name, "interface": b.interface_name,
                              "annular_interface": b.annular_name, "interface_kwargs": dict(b.interface_kwargs)}}
 
@@ -263,7 +281,9 @@ class NeuralClosure(Closure):
         return (x - self.feature_mean) / self.feature_std
 
     def learned_log_factor(self, z: torch.Tensor | Sequence[torch.Tensor]) -> torch.Tensor:
-        """The network's part of ln f, ``(*batch, 3)``, from standardised features ``z (*batch, F)``.
+        """The network's part of ln f, ``(*batch, 3)``, from the network input ``z (*batch, F)``
+        (standardised features, and the baseline input as the last column with ``base_input``;
+        :meth:`evaluate` builds it).
 
         Correction mode: :math:`b\\tanh(o)`, the log of f / f_base. Direct mode:
         :math:`s\\tanh(o/s)`, the log of f / f_ref.
@@ -301,19 +321,21 @@ class NeuralClosure(Closure):
         features.
         """
         z = self.standardise(closure_features(state))
+        base = torch.stack(tuple(self.baseline(state)), dim=-1) if self.mode == "correction" or self.base_input else None
+        if self.base_input:
+            z = torch.cat([z, torch.log(base[..., 2] / base[..., 1]).unsqueeze(-1)], dim=-1)
         if input_grad:
             zs = tuple(z.detach().requires_grad_(True) for _ in self.branches)
         else:
             zs = (z,) * len(self.branches)
         g = self.learned_log_factor(zs)
         g_f = self.learned_log_factor(z) if input_grad and z.requires_grad else g
-        base = None
         if self.mode == "correction":
             # f_base * exp(g) rather than exp(ln f_base + g): exactly the baseline where g = 0
-            base = torch.stack(tuple(self.baseline(state)), dim=-1)
             f = base * torch.exp(g_f)
         else:
             f = torch.exp(self.log_f_ref + g_f)
+            base = None
         return NeuralEvaluation(factors=f, base=base, g=g, inputs=zs)
 
     def forward(self, state: LocalState) -> FrictionFactors:

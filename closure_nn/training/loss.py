@@ -94,7 +94,6 @@ from ..closures.neural import OUTPUT_NAMES, NeuralClosure, NeuralEvaluation
 from ..data.features import KIND_CODE, KINDS, frac_from_holdup, resolve_kinds
 from ..physics.conditions import FIELD_NAMES, Conditions
 from ..physics.geometry import STRATIFIED
-from ..physics.groups import closure_features
 from ..physics.holdup_roots import solve_separated
 from ..physics.local_state import LocalState, local_state
 from ..physics.momentum import FrictionFactors, combined_residual, gas_residual, liquid_residual, shear_stresses
@@ -223,11 +222,8 @@ def smoothness(closure: NeuralClosure, s: LocalState, ev: NeuralEvaluation | Non
     a zero gradient and add nothing.
     """
     if ev is None:
-        z = closure.standardise(closure_features(s))
-        zs = tuple(z.detach().requires_grad_(True) for _ in closure.branches)
-        g = closure.learned_log_factor(zs)
-    else:
-        zs, g = ev.inputs, ev.g
+        ev = closure.evaluate(s, input_grad=True)
+    zs, g = ev.inputs, ev.g
     total = torch.zeros(g.shape[:-1], dtype=g.dtype)
     for j in range(max(len(outs) for outs in closure.branch_outputs)):
         cols = [outs[j] for outs in closure.branch_outputs if len(outs) > j]

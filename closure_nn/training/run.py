@@ -80,7 +80,8 @@ def _new_closure(cfg: DictConfig, df: pd.DataFrame) -> NeuralClosure:
     closure = NeuralClosure(hidden=list(m.hidden), activation=m.activation, mode=m.mode, bound=bound,
                             direct_span=m.direct_span, baseline=_baseline_kwargs(cfg),
                             inputs=OmegaConf.to_container(m.inputs, resolve=True) if m.get("inputs") else None,
-                            learn=list(m.learn) if m.get("learn") else None)
+                            learn=list(m.learn) if m.get("learn") else None,
+                            base_input=bool(m.get("base_input", False)))
     states = table_states(df, closure.baseline, cfg.data.unknown_pattern)
     if not states:
         raise InputError(f"train: {cfg.data.train}: no separated-flow row (stratified or annular pattern) to train on")
