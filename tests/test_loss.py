@@ -174,6 +174,37 @@ def test_rows_of_unknown_pattern_take_the_predicted_configuration():
     assert counts_s["data_holdup"] == 0 and counts_s["phase_residual"] == 0
 
 
+def test_unbounded_prior_keeps_its_pull_where_the_bound_saturates():
+    """prior_space='unbounded': lambda (b o)^2 on the correction before its tanh bound. Equal to
+    the log-factor prior lambda (b tanh o)^2 to second order for small o (tanh o = o - o^3/3),
+    and, unlike it, still pulling where tanh saturates (d/do (b tanh o)^2 -> 0; calculus)."""
+    base = BaselineClosure()
+    df = make_table(base, 10)
+    net = fitted_model(df, inputs={"f_wl": ["log10_Re_L", "frac", "rel_rough"], "f_wg": ["log10_Re_G", "frac", "rel_rough"], "f_i": None})
+    w = {k: 0.0 for k in TERMS} | {"prior": 1.0}
+    t = table_tensors(df)
+    head = net.branches[1][-1]  # the f_wg branch's output layer
+
+    def prior_and_grad(space, bias):
+        with torch.no_grad():
+            head.bias.fill_(bias)
+        net.zero_grad()
+        total, terms, _ = ClosureLoss(LossSettings(weights=w, prior_space=space))(net, t)
+        total.backward()
+        return float(terms["prior"]), float(head.bias.grad[0])
+
+    small_log, _ = prior_and_grad("log_factor", 1e-3)
+    small_raw, _ = prior_and_grad("unbounded", 1e-3)
+    b = net.bound_vec[1].item()
+    assert small_raw == pytest.approx((b * 1e-3) ** 2, rel=1e-9)  # lambda_wg = 1
+    assert small_log == pytest.approx(small_raw, rel=1e-5)
+    _, g_log = prior_and_grad("log_factor", 8.0)  # tanh(8) = 1 - 2e-7: at the bound
+    _, g_raw = prior_and_grad("unbounded", 8.0)
+    assert abs(g_log) < 1e-5 and g_raw == pytest.approx(2 * b**2 * 8.0, rel=1e-9)
+    with pytest.raises(ValueError, match="prior_space"):
+        LossSettings(prior_space="raw")
+
+
 def test_prior_and_smoothness_grow_away_from_the_baseline():
     base = BaselineClosure()
     df = make_table(base, 10)

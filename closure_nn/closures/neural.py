@@ -73,6 +73,9 @@ class NeuralEvaluation:
     base: torch.Tensor | None  #: baseline factors f_k,base [-] (correction mode), else None
     g: torch.Tensor  #: the network's part of ln f [-] (see :meth:`NeuralClosure.learned_log_factor`)
     inputs: tuple[torch.Tensor, ...]  #: standardised features z [-], one entry per branch
+    #: the network outputs o before the bound (``(*batch, 3)``, 0 for factors not learned): in
+    #: correction mode ``g = b tanh(o)``, so ``b o`` is the log correction without the bound
+    raw: torch.Tensor | None = None
 
     def friction(self) -> FrictionFactors:
         """``factors`` as :class:`~closure_nn.physics.momentum.FrictionFactors` (views, ``(*batch)`` each)."""
@@ -281,7 +284,17 @@ class NeuralClosure(Closure):
         return (x - self.feature_mean) / self.feature_std
 
     def learned_log_factor(self, z: torch.Tensor | Sequence[torch.Tensor]) -> torch.Tensor:
-        """The network's part of ln f, ``(*batch, 3)``, from the network input ``z (*batch, F)``
+        """The network's part of ln f, ``(*batch, 3)``: :meth:`network_outputs` through the bound."""
+        return self.squash(self.network_outputs(z))
+
+    def squash(self, out: torch.Tensor) -> torch.Tensor:
+        """Network outputs o ``(*batch, 3)`` -> the network's part of ln f (see :meth:`network_outputs`)."""
+        if self.mode == "correction":
+            return self.bound_vec * torch.tanh(out)
+        return self.direct_span * torch.tanh(out / self.direct_span)
+
+    def network_outputs(self, z: torch.Tensor | Sequence[torch.Tensor]) -> torch.Tensor:
+        """The network outputs o ``(*batch, 3)`` (0 for factors not learned) from the network input ``z (*batch, F)``
         (standardised features, and the baseline input as the last column with ``base_input``;
         :meth:`evaluate` builds it).
 
@@ -295,7 +308,7 @@ class NeuralClosure(Closure):
         """
         zs = (z,) * len(self.branches) if isinstance(z, torch.Tensor) else tuple(z)
         if len(zs) != len(self.branches):
-            raise ValueError(f"learned_log_factor: {len(zs)} feature tensors for {len(self.branches)} branches")
+            raise ValueError(f"network_outputs: {len(zs)} feature tensors for {len(self.branches)} branches")
         parts = [branch(zb if ix is None else zb.index_select(-1, ix))
                  for branch, ix, zb in zip(self.branches, self._branch_index, zs)]
         out = parts[0] if len(parts) == 1 else torch.cat(parts, dim=-1)  # branches ordered by output
@@ -303,9 +316,7 @@ class NeuralClosure(Closure):
             full = torch.zeros(*out.shape[:-1], N_OUT, dtype=out.dtype)
             full[..., [j for outs in self.branch_outputs for j in outs]] = out
             out = full
-        if self.mode == "correction":
-            return self.bound_vec * torch.tanh(out)
-        return self.direct_span * torch.tanh(out / self.direct_span)
+        return out
 
     def log_friction(self, state: LocalState) -> torch.Tensor:
         """ln of (f_WL, f_WG, f_i), shape ``(*batch, 3)``."""
@@ -328,7 +339,8 @@ class NeuralClosure(Closure):
             zs = tuple(z.detach().requires_grad_(True) for _ in self.branches)
         else:
             zs = (z,) * len(self.branches)
-        g = self.learned_log_factor(zs)
+        raw = self.network_outputs(zs)
+        g = self.squash(raw)
         g_f = self.learned_log_factor(z) if input_grad and z.requires_grad else g
         if self.mode == "correction":
             # f_base * exp(g) rather than exp(ln f_base + g): exactly the baseline where g = 0
@@ -336,7 +348,7 @@ class NeuralClosure(Closure):
         else:
             f = torch.exp(self.log_f_ref + g_f)
             base = None
-        return NeuralEvaluation(factors=f, base=base, g=g, inputs=zs)
+        return NeuralEvaluation(factors=f, base=base, g=g, inputs=zs, raw=raw)
 
     def forward(self, state: LocalState) -> FrictionFactors:
         return self.evaluate(state).friction()

@@ -66,6 +66,11 @@ Terms (each a weighted mean over the rows it applies to; weights in ``conf/loss/
     holdup, solved) states: pulls the closure toward the mechanistic baseline where data are
     silent. The per-factor weights :math:`\lambda_k` (``prior_factors``, default
     ``{f_wl: 1, f_wg: 1, f_i: 0.01}``) make the split between the factors physical (below).
+    With ``prior_space='unbounded'`` (correction mode) the prior acts on the correction before
+    its bound, :math:`\sum_k \lambda_k (b_k o_k)^2` with :math:`\ln(f_k/f_{k,\mathrm{base}}) = b_k\tanh o_k`:
+    the same for small corrections, but its gradient does not vanish where the bound saturates
+    (the gradient of :math:`(b\tanh o)^2` does, so a factor driven to its bound stays there,
+    measured on the demo campaign: the gas wall factor sat at e^{+-0.5} on most states).
 ``smooth``
     :math:`\sum_k \lVert \partial g_k / \partial z \rVert^2`, g the network's part of ln f and z
     the standardised features, at the same states.
@@ -106,6 +111,8 @@ TERMS = ("phase_residual", "combined_residual", "data_holdup", "data_pgrad", "pa
 PRIOR_FACTORS = {"f_wl": 1.0, "f_wg": 1.0, "f_i": 0.01}
 #: which rows feed the pattern term (see ``pattern`` in the module docstring)
 PATTERN_ROWS = ("pattern_only", "observed")
+#: where the prior measures the distance to the baseline (see ``prior`` in the module docstring)
+PRIOR_SPACES = ("log_factor", "unbounded")
 _STRAT_CODES = tuple(CODE[p] for p in STRATIFIED_PATTERNS)
 _UNSTABLE_CODES = (CODE[INTERMITTENT], CODE[ANNULAR_PATTERN], CODE[DISPERSED_BUBBLE])
 
@@ -125,6 +132,7 @@ class LossSettings:
     pattern_margin: float = 0.05  # [-]
     pattern_tolerance: float = 0.05  # [-] margin shortfall that counts as one unit of the pattern term
     pattern_rows: str = "pattern_only"  # 'pattern_only' | 'observed' (see the module docstring)
+    prior_space: str = "log_factor"  # 'log_factor' | 'unbounded' (see ``prior`` in the module docstring)
     effective_variance: bool = False  # propagate holdup_sd into the phase-residual scale
     #: Cauchy scale c of the phase-residual term (None: plain squares); see :func:`cauchy`
     residual_robust_scale: float | None = None
@@ -144,6 +152,8 @@ class LossSettings:
             raise ValueError(f"prior_factors must be >= 0, got {self.prior_factors}")
         if self.pattern_rows not in PATTERN_ROWS:
             raise ValueError(f"pattern_rows must be one of {', '.join(PATTERN_ROWS)}, got {self.pattern_rows!r}")
+        if self.prior_space not in PRIOR_SPACES:
+            raise ValueError(f"prior_space must be one of {', '.join(PRIOR_SPACES)}, got {self.prior_space!r}")
         if not self.pattern_tolerance > 0:
             raise ValueError(f"pattern_tolerance must be positive, got {self.pattern_tolerance}")
 
@@ -365,7 +375,10 @@ class ClosureLoss(nn.Module):
                 ev = closure.evaluate(s, input_grad=need_smooth)
             if wt["prior"] > 0:
                 base = ev.base if ev.base is not None else torch.stack(tuple(closure.baseline(s)), dim=-1)
-                dlog = torch.log(ev.factors) - torch.log(base)
+                if cfg.prior_space == "unbounded" and closure.mode == "correction":
+                    dlog = closure.bound_vec * ev.raw
+                else:
+                    dlog = torch.log(ev.factors) - torch.log(base)
                 acc.add("prior", (lam * dlog**2).sum(dim=-1), w)
             if need_smooth:
                 acc.add("smooth", smoothness(closure, s, ev), w)
