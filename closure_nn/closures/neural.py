@@ -72,7 +72,7 @@ class NeuralEvaluation:
     factors: torch.Tensor  #: Fanning factors f_k [-]
     base: torch.Tensor | None  #: baseline factors f_k,base [-] (correction mode), else None
     g: torch.Tensor  #: the network's part of ln f [-] (see :meth:`NeuralClosure.learned_log_factor`)
-    inputs: tuple[torch.Tensor, ...]  #: standardised features z [-], one entry per branch
+    inputs: tuple[torch.Tensor, ...]  #: network input z [-] (see above), one entry per branch
     #: the network outputs o before the bound (``(*batch, 3)``, 0 for factors not learned): in
     #: correction mode ``g = b tanh(o)``, so ``b o`` is the log correction without the bound
     raw: torch.Tensor | None = None
@@ -288,7 +288,8 @@ class NeuralClosure(Closure):
         return self.squash(self.network_outputs(z))
 
     def squash(self, out: torch.Tensor) -> torch.Tensor:
-        """Network outputs o ``(*batch, 3)`` -> the network's part of ln f (see :meth:`network_outputs`)."""
+        """Network outputs o ``(*batch, 3)`` -> the network's part of ln f. Correction mode: :math:`b\\tanh(o)`, the log of f / f_base. Direct mode:
+        :math:`s\\tanh(o/s)`, the log of f / f_ref."""
         if self.mode == "correction":
             return self.bound_vec * torch.tanh(out)
         return self.direct_span * torch.tanh(out / self.direct_span)
@@ -296,10 +297,7 @@ class NeuralClosure(Closure):
     def network_outputs(self, z: torch.Tensor | Sequence[torch.Tensor]) -> torch.Tensor:
         """The network outputs o ``(*batch, 3)`` (0 for factors not learned) from the network input ``z (*batch, F)``
         (standardised features, and the baseline input as the last column with ``base_input``;
-        :meth:`evaluate` builds it).
-
-        Correction mode: :math:`b\\tanh(o)`, the log of f / f_base. Direct mode:
-        :math:`s\\tanh(o/s)`, the log of f / f_ref.
+        :meth:`evaluate` builds it); :meth:`squash` turns them into the network's part of ln f.
 
         ``z`` may also be a sequence of one features tensor per branch (``len(self.branches)``,
         each ``(*batch, F)``), branch ``b`` reading only ``z[b]``; with one gradient leaf per
