@@ -96,7 +96,7 @@ import torch
 from torch import nn
 
 from ..closures.neural import OUTPUT_NAMES, NeuralClosure, NeuralEvaluation
-from ..data.features import KIND_CODE, KINDS, frac_from_holdup, resolve_kinds
+from ..data.features import KIND_CODE, KIND_PREDICTED, KINDS, frac_from_holdup, resolve_kinds
 from ..physics.conditions import FIELD_NAMES, Conditions
 from ..physics.geometry import STRATIFIED
 from ..physics.holdup_roots import solve_separated
@@ -292,7 +292,7 @@ class ClosureLoss(nn.Module):
         # rows of unknown pattern under unknown_pattern='predicted': the configuration of the
         # pattern the closure in training predicts for them now (no gradient through the choice)
         kinds = resolve_kinds(batch["kind"], batch_conditions(batch), closure, cfg.select, cfg.n_grid) \
-            if bool((batch["kind"] < -1).any()) else batch["kind"]
+            if bool((batch["kind"] == KIND_PREDICTED).any()) else batch["kind"]  # skip building conditions
         w_row = batch["weight"]
         sh, sp = uncertainties(batch, cfg)
         H, P = batch["holdup"], batch["pgrad"]
@@ -374,10 +374,10 @@ class ClosureLoss(nn.Module):
             if ev is None:
                 ev = closure.evaluate(s, input_grad=need_smooth)
             if wt["prior"] > 0:
-                base = ev.base if ev.base is not None else torch.stack(tuple(closure.baseline(s)), dim=-1)
                 if cfg.prior_space == "unbounded" and closure.mode == "correction":
                     dlog = closure.bound_vec * ev.raw
                 else:
+                    base = ev.base if ev.base is not None else torch.stack(tuple(closure.baseline(s)), dim=-1)
                     dlog = torch.log(ev.factors) - torch.log(base)
                 acc.add("prior", (lam * dlog**2).sum(dim=-1), w)
             if need_smooth:
