@@ -164,6 +164,15 @@ def test_rows_of_unknown_pattern_take_the_predicted_configuration():
     for k in ("phase_residual", "data_holdup", "data_pgrad", "prior"):
         assert counts_u[k] == counts_o[k] > 0
         assert float(terms_u[k]) == pytest.approx(float(terms_o[k]), rel=1e-9)
+    # the held-out residuals at the measured states resolve them alike (closure_nn.training.metrics)
+    from closure_nn.training.loss import uncertainties
+    from closure_nn.training.metrics import measured_state_residuals
+    sd_p = uncertainties(t_obs, LossSettings())[1]
+    r_o = measured_state_residuals(net, t_obs, sd_p)
+    r_u = measured_state_residuals(net, t_unk, sd_p)
+    assert np.isfinite(r_o["r_gas"]).sum() > 0
+    np.testing.assert_allclose(r_u["r_gas"], r_o["r_gas"], rtol=1e-9, equal_nan=True)
+    np.testing.assert_allclose(r_u["r_liquid"], r_o["r_liquid"], rtol=1e-9, equal_nan=True)
     # the mapping pattern -> configuration, on the states of the classify() example
     from closure_nn.data.features import predicted_kind_codes
     from closure_nn.physics.conditions import make_conditions

@@ -126,7 +126,8 @@ def measured_state_residuals(closure, t: dict[str, torch.Tensor], pgrad_sd: torc
                              holdup_sd: torch.Tensor | None = None) -> dict[str, np.ndarray]:
     r"""Phase momentum residuals of ``closure`` at the MEASURED states ``(N,)`` (NaN where not defined).
 
-    For rows with holdup (0 < H < 1) AND pgrad measured and a separated observed pattern (``t['kind'] >= 0``),
+    For rows with holdup (0 < H < 1) AND pgrad measured and a separated observed pattern (``t['kind'] >= 0``;
+    rows of kind predicted take the configuration ``closure`` predicts, :func:`resolve_kinds`),
     the state is built from the measured holdup and the two phase balances of
     :mod:`closure_nn.physics.momentum` are evaluated with the measured pgrad:
 
@@ -149,8 +150,9 @@ def measured_state_residuals(closure, t: dict[str, torch.Tensor], pgrad_sd: torc
     r_g = r_l.clone()
     H, P = t["holdup"], t["pgrad"]
     with torch.no_grad():
+        kinds = resolve_kinds(t["kind"], batch_conditions(t), closure)
         for kind in KINDS:
-            sel = (t["kind"] == KIND_CODE[kind]) & torch.isfinite(H) & torch.isfinite(P) & (H > 0) & (H < 1)
+            sel = (kinds == KIND_CODE[kind]) & torch.isfinite(H) & torch.isfinite(P) & (H > 0) & (H < 1)
             if not sel.any():
                 continue
             s = local_state(batch_conditions(t, sel), frac_from_holdup(H[sel], kind), kind)
