@@ -311,12 +311,13 @@ def _domain_summary(closure: NeuralClosure, cfg: DictConfig) -> dict:
 
 
 def _ensemble_metrics(ens: ClosureEnsemble, val_t: dict, cfg: DictConfig) -> dict:
-    from ..data.features import KIND_CODE, KINDS
+    from ..data.features import KIND_CODE, KINDS, resolve_kinds
     from .loss import batch_conditions
 
     spreads_h, spreads_p, errs = [], [], []
+    kinds = resolve_kinds(val_t["kind"], batch_conditions(val_t), ens, cfg.loss.select)  # kind predicted: the ensemble's
     for kind in KINDS:
-        sel = val_t["kind"] == KIND_CODE[kind]
+        sel = kinds == KIND_CODE[kind]
         if not sel.any():
             continue
         pred = ens.predict(batch_conditions(val_t, sel), kind, cfg.loss.select)
