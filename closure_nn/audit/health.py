@@ -53,13 +53,13 @@ FACTORS = ("f_wl", "f_wg", "f_i")
 #: sweep name -> (condition field or 'frac', coordinate, lo, hi, features it moves)
 SWEEPS: dict[str, tuple[str, str, float, float, str]] = {
     "frac": ("frac", "logit", 0.005, 0.995, "frac (and every velocity group)"),
-    "vsl": ("vsl", "log10", 1e-3, 2.0, "log10_Re_L, Fr_L, slog10_1p_We"),
-    "vsg": ("vsg", "log10", 0.1, 60.0, "log10_Re_G, Fr_G, slog10_1p_We"),
+    "vsl": ("vsl", "log10", 1e-3, 2.0, "log10_Re_L, Fr_L, asinh_We_slip"),
+    "vsg": ("vsg", "log10", 0.1, 60.0, "log10_Re_G, Fr_G, asinh_We_slip"),
     "D": ("D", "log10", 0.02, 0.3, "Re_L, Re_G, Fr_L, Fr_G, We, rel_rough"),
     "rhog": ("rhog", "log10", 0.6, 120.0, "log10_rho_ratio, Re_G, Fr_G, We"),
     "mul": ("mul", "log10", 3e-4, 0.1, "log10_mu_ratio, Re_L"),
     "mug": ("mug", "log10", 8e-6, 3e-5, "log10_mu_ratio, Re_G"),
-    "sigma": ("sigma", "log10", 0.01, 0.08, "slog10_1p_We"),
+    "sigma": ("sigma", "log10", 0.01, 0.08, "asinh_We_slip"),
     "roughness": ("roughness", "log10", 1e-7, 1e-3, "rel_rough"),
     "theta": ("theta", "deg", -30.0, 30.0, "sin_theta"),
 }

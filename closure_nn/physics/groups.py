@@ -11,7 +11,7 @@ log10_Re_G     log10(rho_G u_G D_G / mu_G)                                      
 frac           h/D (stratified) or delta/D (annular)                                  TD76
 Fr_L           u_L / sqrt(g D)                                                        (a)
 Fr_G           sqrt(rho_G/(rho_L - rho_G)) u_G / sqrt(g D)  (densimetric)             TD76 eq.25
-slog10_1p_We   sign(u_G - u_L) log10(1 + rho_G (u_G - u_L)^2 D / sigma)              (a), (b)
+asinh_We_slip  asinh((u_G - u_L) sqrt(rho_G D / sigma)), i.e. asinh(+-We^1/2)          (a), (b)
 log10_rho_ratio  log10(rho_G / rho_L)                                                 (a)
 log10_mu_ratio   log10(mu_G / mu_L)                                                   (a)
 rel_rough      roughness / D                                                          (a)
@@ -19,9 +19,11 @@ sin_theta      sin(theta)                                                       
 annular        1 for an annular-film state, 0 for stratified                          --
 =============  ====================================================================  =========
 
-(a) standard definitions, common practice. (b) the Weber number of the slip, signed by the slip
-direction (the interfacial shear reverses with it: a fast liquid film under slow gas, as on a steep
-downhill, must not look like fast gas over a slow film); the 1 + keeps it smooth (C1) at zero slip.
+(a) standard definitions, common practice. (b) the Weber number of the slip, We = rho_G (u_G -
+u_L)^2 D / sigma, through its square root signed by the slip direction (the interfacial shear
+reverses with it: a fast liquid film under slow gas, as on a steep downhill, must not look like
+fast gas over a slow film), in asinh: logarithmic for large We (asinh y ~ ln 2y), analytic and of
+nonzero slope at zero slip, so the closure has no kink or plateau inside the root finder there.
 TD76 = Taitel & Dukler (1976), AIChE J. 22(1):47-55.
 Logs use a floor of 1e-30 on their argument so that zero velocities stay finite.
 """
@@ -35,15 +37,10 @@ from .geometry import ANNULAR
 from .local_state import LocalState
 
 FEATURE_NAMES: tuple[str, ...] = (
-    "log10_Re_L", "log10_Re_G", "frac", "Fr_L", "Fr_G", "slog10_1p_We",
+    "log10_Re_L", "log10_Re_G", "frac", "Fr_L", "Fr_G", "asinh_We_slip",
     "log10_rho_ratio", "log10_mu_ratio", "rel_rough", "sin_theta", "annular",
 )
 _FLOOR = 1e-30
-
-
-def _signed_log10_1p(x: torch.Tensor) -> torch.Tensor:
-    """sign(x) log10(1 + |x|): odd, monotone, slope 1/ln 10 at 0."""
-    return torch.sign(x) * torch.log10(1 + x.abs())
 
 
 def _log10(x: torch.Tensor) -> torch.Tensor:
@@ -61,7 +58,7 @@ def closure_features(s: LocalState) -> torch.Tensor:
         s.geom.frac,
         s.u_L / gD,
         torch.sqrt(s.rho_core / drho) * s.u_G / gD,
-        _signed_log10_1p(s.rho_core * (s.u_G - s.u_L) * (s.u_G - s.u_L).abs() * c.D / c.sigma),
+        torch.asinh((s.u_G - s.u_L) * torch.sqrt(s.rho_core * c.D / c.sigma)),
         _log10(s.rho_core / c.rhol),
         _log10(c.mug / c.mul),
         c.roughness / c.D,
