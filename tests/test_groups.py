@@ -1,9 +1,10 @@
 """Tests of the dimensionless closure inputs (closure_nn.physics.groups).
 
 Sources: the Weber number of the phase slip, We = rho_G (u_G - u_L)^2 D / sigma, is the standard
-definition (common practice; the feature is asinh(sign(u_G - u_L) We^1/2), module docstring); stratified phase velocities u_L = v_SL / H, u_G = v_SG / (1 - H)
-are the definition of the in-situ velocities (Taitel & Dukler 1976). Values below are computed by
-hand from those definitions for invented air-water states in a 50 mm pipe.
+definition (common practice; the feature is asinh(sign(u_G - u_L) We^1/2), module docstring);
+stratified phase velocities u_L = v_SL / H, u_G = v_SG / (1 - H) are the definition of the in-situ
+velocities (Taitel & Dukler 1976). Values below are computed by hand from those definitions for
+invented air-water states in a 50 mm pipe.
 """
 from __future__ import annotations
 
