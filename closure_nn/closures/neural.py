@@ -288,8 +288,8 @@ class NeuralClosure(Closure):
         return self.squash(self.network_outputs(z))
 
     def squash(self, out: torch.Tensor) -> torch.Tensor:
-        """Network outputs o ``(*batch, 3)`` -> the network's part of ln f. Correction mode: :math:`b\\tanh(o)`, the log of f / f_base. Direct mode:
-        :math:`s\\tanh(o/s)`, the log of f / f_ref."""
+        """Network outputs o ``(*batch, 3)`` -> the network's part of ln f. Correction mode:
+        :math:`b\\tanh(o)`, the log of f / f_base. Direct mode: :math:`s\\tanh(o/s)`, the log of f / f_ref."""
         if self.mode == "correction":
             return self.bound_vec * torch.tanh(out)
         return self.direct_span * torch.tanh(out / self.direct_span)

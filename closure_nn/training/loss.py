@@ -184,6 +184,14 @@ def batch_conditions(batch: dict[str, torch.Tensor], rows: torch.Tensor | None =
     return Conditions(**cols)
 
 
+def batch_kinds(batch: dict[str, torch.Tensor], closure, select: str = "thinnest", n_grid: int = 40) -> torch.Tensor:
+    """``batch['kind']`` with the rows of kind predicted resolved with ``closure``
+    (:func:`~closure_nn.data.features.resolve_kinds`); the conditions are built only when such rows exist."""
+    if not bool((batch["kind"] == KIND_PREDICTED).any()):
+        return batch["kind"]
+    return resolve_kinds(batch["kind"], batch_conditions(batch), closure, select, n_grid)
+
+
 def measured_state_rows(holdup: torch.Tensor) -> torch.Tensor:
     """Bool mask ``(B,)`` of rows with a measured separated state: holdup given and 0 < H < 1 (a
     reading of exactly 0 or 1, clipped by the data reduction, is no separated-flow state)."""
@@ -291,8 +299,7 @@ class ClosureLoss(nn.Module):
         cfg, acc = self.settings, _Acc()
         # rows of unknown pattern under unknown_pattern='predicted': the configuration of the
         # pattern the closure in training predicts for them now (no gradient through the choice)
-        kinds = resolve_kinds(batch["kind"], batch_conditions(batch), closure, cfg.select, cfg.n_grid) \
-            if bool((batch["kind"] == KIND_PREDICTED).any()) else batch["kind"]  # skip building conditions
+        kinds = batch_kinds(batch, closure, cfg.select, cfg.n_grid)
         w_row = batch["weight"]
         sh, sp = uncertainties(batch, cfg)
         H, P = batch["holdup"], batch["pgrad"]

@@ -21,9 +21,9 @@ import math
 import numpy as np
 import torch
 
-from ..data.features import KIND_CODE, KINDS, resolve_kinds
+from ..data.features import KIND_CODE, KINDS
 from ..physics.holdup_roots import solve_separated
-from .loss import batch_conditions
+from .loss import batch_conditions, batch_kinds
 
 PGRAD_FLOOR = 1.0  # Pa/m: rows with a smaller |pgrad| are left out of the relative error
 
@@ -36,7 +36,7 @@ def predict_rows(closure, t: dict[str, torch.Tensor], select: str = "thinnest") 
     pg = torch.full_like(hold, float("nan"))
     found = torch.zeros(n, dtype=torch.bool)
     with torch.no_grad():
-        kinds = resolve_kinds(t["kind"], batch_conditions(t), closure, select)
+        kinds = batch_kinds(t, closure, select)
         for kind in KINDS:
             sel = kinds == KIND_CODE[kind]
             if sel.any():
@@ -127,7 +127,7 @@ def measured_state_residuals(closure, t: dict[str, torch.Tensor], pgrad_sd: torc
     r"""Phase momentum residuals of ``closure`` at the MEASURED states ``(N,)`` (NaN where not defined).
 
     For rows with holdup (0 < H < 1) AND pgrad measured and a separated observed pattern (``t['kind'] >= 0``;
-    rows of kind predicted take the configuration ``closure`` predicts, :func:`resolve_kinds`),
+    rows of kind predicted take the configuration ``closure`` predicts, :func:`batch_kinds`),
     the state is built from the measured holdup and the two phase balances of
     :mod:`closure_nn.physics.momentum` are evaluated with the measured pgrad:
 
@@ -150,7 +150,7 @@ def measured_state_residuals(closure, t: dict[str, torch.Tensor], pgrad_sd: torc
     r_g = r_l.clone()
     H, P = t["holdup"], t["pgrad"]
     with torch.no_grad():
-        kinds = resolve_kinds(t["kind"], batch_conditions(t), closure)
+        kinds = batch_kinds(t, closure)
         for kind in KINDS:
             sel = (kinds == KIND_CODE[kind]) & torch.isfinite(H) & torch.isfinite(P) & (H > 0) & (H < 1)
             if not sel.any():

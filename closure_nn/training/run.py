@@ -311,11 +311,11 @@ def _domain_summary(closure: NeuralClosure, cfg: DictConfig) -> dict:
 
 
 def _ensemble_metrics(ens: ClosureEnsemble, val_t: dict, cfg: DictConfig) -> dict:
-    from ..data.features import KIND_CODE, KINDS, resolve_kinds
-    from .loss import batch_conditions
+    from ..data.features import KIND_CODE, KINDS
+    from .loss import batch_conditions, batch_kinds
 
     spreads_h, spreads_p, errs = [], [], []
-    kinds = resolve_kinds(val_t["kind"], batch_conditions(val_t), ens, cfg.loss.select)  # kind predicted: the ensemble's
+    kinds = batch_kinds(val_t, ens, cfg.loss.select)  # rows of kind predicted: the ensemble's pattern
     for kind in KINDS:
         sel = kinds == KIND_CODE[kind]
         if not sel.any():
