@@ -88,6 +88,26 @@ def test_holdup_misfit_is_scaled_by_its_uncertainty():
     assert float(terms["data_holdup"]) == pytest.approx((0.01 / 0.004) ** 2, rel=1e-9)
 
 
+def test_robust_data_misfit_is_the_cauchy_loss_of_the_standardised_misfit():
+    """data_robust_scale c: data terms c^2 ln(1 + r^2/c^2) of the same standardised misfits r
+    (Cauchy loss, Holland & Welsch 1977, from memory): r^2 for |r| << c, and a 30-sd row (a
+    pattern label in error) costs ~41.5 instead of 900 at c = 3 (the cauchy() example)."""
+    base = BaselineClosure()
+    df = make_table(base, 12)
+    r_h, r_p = 0.5, np.where(np.arange(12) < 2, 30.0, 0.5)  # two rows 30 sd off in pgrad
+    df = df.assign(holdup=df["holdup"] + 0.01 * r_h, holdup_sd=0.01, pgrad_sd=df["pgrad"].abs() * 0.02)
+    df = df.assign(pgrad=df["pgrad"] + r_p * df["pgrad_sd"])
+    w = {k: 0.0 for k in TERMS} | {"data_holdup": 1.0, "data_pgrad": 1.0}
+    net, t = fitted_model(df), table_tensors(df)
+    _, plain, _ = ClosureLoss(LossSettings(weights=w))(net, t)
+    _, robust, _ = ClosureLoss(LossSettings(weights=w, data_robust_scale=3.0))(net, t)
+    cauchy = lambda r: 9.0 * np.log1p((np.asarray(r) / 3.0) ** 2)
+    assert float(plain["data_pgrad"]) == pytest.approx(float(np.mean(r_p**2)), rel=1e-6)
+    assert float(robust["data_pgrad"]) == pytest.approx(float(np.mean(cauchy(r_p))), rel=1e-6)
+    assert float(robust["data_holdup"]) == pytest.approx(float(cauchy(r_h)), rel=1e-6)
+    assert float(cauchy(30.0)) == pytest.approx(41.5361, abs=1e-4)
+
+
 def test_pattern_term_penalises_a_contradicting_equilibrium():
     """Kelvin-Helmholtz margin (Taitel & Dukler 1976): a stable stratified equilibrium observed as
     intermittent is penalised, observed as stratified it is not."""
@@ -255,3 +275,36 @@ def test_data_loss_gradient_matches_finite_differences():
 def test_unknown_loss_term_is_rejected():
     with pytest.raises(ValueError, match="unknown loss term"):
         LossSettings(weights={"data": 1.0})
+
+
+def test_clear_rule_leaves_out_rows_of_unknown_pattern_near_a_transition():
+    """``unknown_pattern='predicted_clear'`` (closure_nn.data.features.clear_kind_codes): a row
+    without a pattern takes the predicted configuration only where that prediction survives a
+    +-20 % change of either superficial velocity. Checked across the Kelvin-Helmholtz boundary of
+    Taitel & Dukler (1976) with the baseline, located here by bisection on v_SG: within 10 % of
+    it the row is left out, at half and twice its v_SG it is not."""
+    from closure_nn.data.features import KIND_PREDICTED_CLEAR, clear_kind_codes, kind_codes, predicted_kind_codes
+    from closure_nn.physics.conditions import make_conditions
+
+    base = BaselineClosure("taitel_dukler", "smooth")
+    kind = lambda vsg: int(predicted_kind_codes(make_conditions(vsl=[0.05], vsg=[vsg], D=0.05), base)[0])
+    lo, hi = 0.5, 30.0
+    assert kind(lo) == 0 and kind(hi) != 0
+    for _ in range(40):
+        mid = 0.5 * (lo + hi)
+        lo, hi = (mid, hi) if kind(mid) == 0 else (lo, mid)
+    vsg = hi * np.array([0.5, 0.9, 1.1, 2.0])
+    c = make_conditions(vsl=np.full(4, 0.05), vsg=vsg, D=0.05)
+    pred = predicted_kind_codes(c, base).tolist()
+    assert pred[:2] == [0, 0] and pred[2] == pred[3] != 0
+    assert clear_kind_codes(c, base).tolist() == [0, -1, -1, pred[3]]
+    assert kind_codes(pd.Series([np.nan, "annular"]), 2, "predicted_clear").tolist() == [KIND_PREDICTED_CLEAR, 1]
+    # in the loss: the rows left out feed no term; the clear ones feed the terms of their kind
+    df = make_table(BaselineClosure(), 4, seed=13).assign(vsl=0.05, vsg=vsg, D=0.05, theta=0.0, holdup=np.nan,
+                                                           pgrad=50.0, pattern=np.nan)
+    net = fitted_model(make_table(BaselineClosure(), 10, seed=11))
+    loss = ClosureLoss(LossSettings(weights={**ALL_ON, "pattern": 0.0}))
+    _, _, counts = loss(net, table_tensors(df, unknown_pattern="predicted_clear"))
+    clear_net = clear_kind_codes(c, net)
+    assert int((clear_net >= 0).sum()) > 0
+    assert counts["data_pgrad"] + counts["no_root"] == int((clear_net >= 0).sum())

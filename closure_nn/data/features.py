@@ -46,7 +46,14 @@ KINDS = (STRATIFIED, ANNULAR)
 #: kind code of a row whose configuration is decided by a closure's predicted pattern
 #: (``unknown_pattern='predicted'``; :func:`resolve_kinds`)
 KIND_PREDICTED = -2
-UNKNOWN_PATTERN_RULES = ("skip", "stratified", "predicted")
+#: the same, but the row is used only where that pattern is clear of every transition
+#: (``unknown_pattern='predicted_clear'``; :func:`clear_kind_codes`)
+KIND_PREDICTED_CLEAR = -3
+UNKNOWN_PATTERN_RULES = ("skip", "stratified", "predicted", "predicted_clear")
+#: relative change of either superficial velocity that must leave a clear prediction unchanged [-]
+#: (our choice: flow-pattern transition criteria are uncertain by tens of percent in velocity when
+#: compared with data, common practice; a label near a boundary is itself often in doubt)
+CLEAR_MARGIN = 0.2
 
 
 def table_conditions(df: pd.DataFrame) -> Conditions:
@@ -59,10 +66,11 @@ def kind_codes(patterns: pd.Series | None, n: int, unknown_pattern: str = "skip"
 
     ``stratified_smooth``/``stratified_wavy`` -> stratified, ``annular`` -> annular, any other
     pattern -> -1. A missing pattern (NaN / empty) follows ``unknown_pattern``: ``'skip'`` (-1,
-    the row feeds no separated-flow term), ``'stratified'``, or ``'predicted'``
+    the row feeds no separated-flow term), ``'stratified'``, ``'predicted'``
     (:data:`KIND_PREDICTED`: the configuration of the pattern that a closure predicts for the
     row, decided when the row is used, :func:`resolve_kinds`; as the point solver does when it
-    scores such a row).
+    scores such a row) or ``'predicted_clear'`` (:data:`KIND_PREDICTED_CLEAR`: the same where
+    that prediction is clear of the transitions, else skipped; :func:`clear_kind_codes`).
     """
     if unknown_pattern not in UNKNOWN_PATTERN_RULES:
         raise ValueError(f"unknown_pattern must be one of {UNKNOWN_PATTERN_RULES}, got {unknown_pattern!r}")
@@ -71,7 +79,8 @@ def kind_codes(patterns: pd.Series | None, n: int, unknown_pattern: str = "skip"
     out = np.full(n, -1, dtype=np.int64)
     for i, p in enumerate(patterns.tolist()):
         if p is None or (isinstance(p, float) and np.isnan(p)) or p == "":
-            out[i] = {"stratified": KIND_CODE[STRATIFIED], "predicted": KIND_PREDICTED}.get(unknown_pattern, -1)
+            out[i] = {"stratified": KIND_CODE[STRATIFIED], "predicted": KIND_PREDICTED,
+                      "predicted_clear": KIND_PREDICTED_CLEAR}.get(unknown_pattern, -1)
         elif p in STRATIFIED_PATTERNS:
             out[i] = KIND_CODE[STRATIFIED]
         elif p == ANNULAR_PATTERN:
@@ -98,16 +107,48 @@ def predicted_kind_codes(cond: Conditions, closure, select: str = "thinnest", n_
     return torch.where(code == CODE[ANNULAR_PATTERN], KIND_CODE[ANNULAR], out)
 
 
+def clear_kind_codes(cond: Conditions, closure, select: str = "thinnest", n_grid: int = 40,
+                     margin: float = CLEAR_MARGIN) -> torch.Tensor:
+    """Kind codes ``(N,)`` of :func:`predicted_kind_codes` where the prediction is clear, else -1.
+
+    Clear: the kind stays the same when v_SL or v_SG alone is scaled by ``1 - margin`` or
+    ``1 + margin`` (four neighbours, solved in one batch). Rows without an observed pattern near
+    a predicted transition are thereby left out of training instead of being fitted in a
+    configuration they may not have: a truly intermittent row fitted as stratified pulls the
+    level down, which makes the stratified state more stable (Taitel & Dukler 1976), i.e. the
+    misfit pushes the predicted pattern the wrong way.
+
+    >>> from closure_nn.physics.conditions import make_conditions
+    >>> from closure_nn.closures.baseline import BaselineClosure
+    >>> c = make_conditions(vsl=[0.01, 0.3, 0.1], vsg=[0.5, 1.0, 30.0], D=0.05)
+    >>> clear_kind_codes(c, BaselineClosure('taitel_dukler', 'smooth')).tolist()
+    [0, -1, 1]
+    """
+    n = int(torch.broadcast_to(cond.vsl, cond.shape).numel())
+    scale_l = torch.tensor([1.0, 1.0 - margin, 1.0 + margin, 1.0, 1.0], dtype=cond.vsl.dtype)
+    scale_g = torch.tensor([1.0, 1.0, 1.0, 1.0 - margin, 1.0 + margin], dtype=cond.vsl.dtype)
+    five = cond.map(lambda t: torch.broadcast_to(t, cond.shape).reshape(1, n).expand(5, n).reshape(-1))
+    five = five.with_(vsl=(scale_l[:, None] * cond.vsl.reshape(1, n)).reshape(-1),
+                      vsg=(scale_g[:, None] * cond.vsg.reshape(1, n)).reshape(-1))
+    codes = predicted_kind_codes(five, closure, select, n_grid).reshape(5, n)
+    same = (codes == codes[0]).all(dim=0)
+    return torch.where(same, codes[0], torch.full_like(codes[0], -1)).reshape(cond.vsl.shape)
+
+
 def resolve_kinds(kinds: torch.Tensor, cond: Conditions, closure, select: str = "thinnest",
                   n_grid: int = 40) -> torch.Tensor:
     """``kinds (N,)`` with every :data:`KIND_PREDICTED` entry replaced by the kind of the pattern
-    ``closure`` predicts for that row (:func:`predicted_kind_codes`); unchanged (the same tensor)
+    ``closure`` predicts for that row (:func:`predicted_kind_codes`) and every
+    :data:`KIND_PREDICTED_CLEAR` entry by :func:`clear_kind_codes`; unchanged (the same tensor)
     when there is none. ``cond`` are the conditions of all N rows."""
-    pred = kinds == KIND_PREDICTED
-    if not bool(pred.any()):
+    pred, clear = kinds == KIND_PREDICTED, kinds == KIND_PREDICTED_CLEAR
+    if not bool(pred.any() or clear.any()):
         return kinds
     out = kinds.clone()
-    out[pred] = predicted_kind_codes(cond[pred], closure, select, n_grid)
+    if pred.any():
+        out[pred] = predicted_kind_codes(cond[pred], closure, select, n_grid)
+    if clear.any():
+        out[clear] = clear_kind_codes(cond[clear], closure, select, n_grid)
     return out
 
 

@@ -45,6 +45,9 @@ Terms (each a weighted mean over the rows it applies to; weights in ``conf/loss/
     (:func:`~closure_nn.physics.holdup_roots.solve_separated`, kind from the pattern; gradients
     by the implicit function theorem), misfit :math:`((\hat H - H)/\sigma_H)^2` and
     :math:`((\hat p - p)/\sigma_p)^2`. Rows without an equilibrium root are left out (counted).
+    With ``data_robust_scale`` c the squares are Cauchy losses (:func:`cauchy`): a row labelled
+    in the wrong pattern (an observer's call near a boundary) is solved in the wrong
+    configuration, and its misfit of tens of sd would otherwise steer the closure.
 ``pattern``
     Near-horizontal rows (theta < ``patterns.THETA_STEEP``) with an observed pattern: by default
     (``pattern_rows='pattern_only'``) only those with neither holdup nor pgrad measured; with
@@ -96,7 +99,7 @@ import torch
 from torch import nn
 
 from ..closures.neural import OUTPUT_NAMES, NeuralClosure, NeuralEvaluation
-from ..data.features import KIND_CODE, KIND_PREDICTED, KINDS, frac_from_holdup, resolve_kinds
+from ..data.features import KIND_CODE, KIND_PREDICTED, KIND_PREDICTED_CLEAR, KINDS, frac_from_holdup, resolve_kinds
 from ..physics.conditions import FIELD_NAMES, Conditions
 from ..physics.geometry import STRATIFIED
 from ..physics.holdup_roots import solve_separated
@@ -136,6 +139,8 @@ class LossSettings:
     effective_variance: bool = False  # propagate holdup_sd into the phase-residual scale
     #: Cauchy scale c of the phase-residual term (None: plain squares); see :func:`cauchy`
     residual_robust_scale: float | None = None
+    #: Cauchy scale c of the data-misfit terms (None: plain squares); see ``data_holdup`` above
+    data_robust_scale: float | None = None
     select: str = "thinnest"
     n_grid: int = 40
 
@@ -187,7 +192,8 @@ def batch_conditions(batch: dict[str, torch.Tensor], rows: torch.Tensor | None =
 def batch_kinds(batch: dict[str, torch.Tensor], closure, select: str = "thinnest", n_grid: int = 40) -> torch.Tensor:
     """``batch['kind']`` with the rows of kind predicted resolved with ``closure``
     (:func:`~closure_nn.data.features.resolve_kinds`); the conditions are built only when such rows exist."""
-    if not bool((batch["kind"] == KIND_PREDICTED).any()):
+    k = batch["kind"]
+    if not bool(((k == KIND_PREDICTED) | (k == KIND_PREDICTED_CLEAR)).any()):
         return batch["kind"]
     return resolve_kinds(batch["kind"], batch_conditions(batch), closure, select, n_grid)
 
@@ -364,8 +370,9 @@ class ClosureLoss(nn.Module):
                 no_root += int((~ok).sum())
                 hh, hp = has_h[data] & ok, has_p[data] & ok
                 wd = w_row[data]
-                acc.add("data_holdup", ((sol.holdup[hh] - H[data][hh]) / sh[data][hh]) ** 2, wd[hh])
-                acc.add("data_pgrad", ((sol.pgrad.total[hp] - P[data][hp]) / sp[data][hp]) ** 2, wd[hp])
+                c_d = cfg.data_robust_scale
+                acc.add("data_holdup", cauchy((sol.holdup[hh] - H[data][hh]) / sh[data][hh], c_d), wd[hh])
+                acc.add("data_pgrad", cauchy((sol.pgrad.total[hp] - P[data][hp]) / sp[data][hp], c_d), wd[hp])
                 solved = ok & ~state_h[data]
                 if solved.any():
                     s_det = local_state(batch_conditions(batch, data)[solved], sol.frac[solved].detach(), kind)
