@@ -11,7 +11,9 @@ training datamodule computes once per row instead of once per batch. Rows of kin
 :data:`~closure_nn.data.features.KIND_PREDICTED` (no observed pattern, ``unknown_pattern='predicted'``)
 take, at every evaluation of the loss, the configuration of the pattern the closure in training
 predicts for them (:func:`~closure_nn.data.features.resolve_kinds`), so they feed every term
-that a row observed in that pattern would feed, except the pattern term.
+that a row observed in that pattern would feed, except the pattern term; rows of kind
+:data:`~closure_nn.data.features.KIND_PREDICTED_CLEAR` (``'predicted_clear'``) likewise, but
+only where that prediction is clear of a transition (else they feed no term).
 
 Terms (each a weighted mean over the rows it applies to; weights in ``conf/loss/*.yaml``):
 
