@@ -124,15 +124,15 @@ def clear_kind_codes(cond: Conditions, closure, select: str = "thinnest", n_grid
     >>> clear_kind_codes(c, BaselineClosure('taitel_dukler', 'smooth')).tolist()
     [0, -1, 1]
     """
-    n = int(torch.broadcast_to(cond.vsl, cond.shape).numel())
-    scale_l = torch.tensor([1.0, 1.0 - margin, 1.0 + margin, 1.0, 1.0], dtype=cond.vsl.dtype)
-    scale_g = torch.tensor([1.0, 1.0, 1.0, 1.0 - margin, 1.0 + margin], dtype=cond.vsl.dtype)
-    five = cond.map(lambda t: torch.broadcast_to(t, cond.shape).reshape(1, n).expand(5, n).reshape(-1))
-    five = five.with_(vsl=(scale_l[:, None] * cond.vsl.reshape(1, n)).reshape(-1),
-                      vsg=(scale_g[:, None] * cond.vsg.reshape(1, n)).reshape(-1))
+    flat = lambda t: torch.broadcast_to(t, cond.shape).reshape(1, -1)  # noqa: E731
+    n = flat(cond.vsl).shape[1]
+    scale_l = torch.tensor([1.0, 1.0 - margin, 1.0 + margin, 1.0, 1.0], dtype=cond.vsl.dtype)[:, None]
+    scale_g = torch.tensor([1.0, 1.0, 1.0, 1.0 - margin, 1.0 + margin], dtype=cond.vsl.dtype)[:, None]
+    five = cond.map(lambda t: flat(t).expand(5, n).reshape(-1))
+    five = five.with_(vsl=(scale_l * flat(cond.vsl)).reshape(-1), vsg=(scale_g * flat(cond.vsg)).reshape(-1))
     codes = predicted_kind_codes(five, closure, select, n_grid).reshape(5, n)
     same = (codes == codes[0]).all(dim=0)
-    return torch.where(same, codes[0], torch.full_like(codes[0], -1)).reshape(cond.vsl.shape)
+    return torch.where(same, codes[0], torch.full_like(codes[0], -1)).reshape(cond.shape)
 
 
 def resolve_kinds(kinds: torch.Tensor, cond: Conditions, closure, select: str = "thinnest",
