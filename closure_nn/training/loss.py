@@ -192,12 +192,12 @@ def batch_conditions(batch: dict[str, torch.Tensor], rows: torch.Tensor | None =
 
 
 def batch_kinds(batch: dict[str, torch.Tensor], closure, select: str = "thinnest", n_grid: int = 40) -> torch.Tensor:
-    """``batch['kind']`` with the rows of kind predicted resolved with ``closure``
+    """``batch['kind']`` with the rows of kind predicted (or predicted-clear) resolved with ``closure``
     (:func:`~closure_nn.data.features.resolve_kinds`); the conditions are built only when such rows exist."""
     k = batch["kind"]
     if not bool(((k == KIND_PREDICTED) | (k == KIND_PREDICTED_CLEAR)).any()):
-        return batch["kind"]
-    return resolve_kinds(batch["kind"], batch_conditions(batch), closure, select, n_grid)
+        return k
+    return resolve_kinds(k, batch_conditions(batch), closure, select, n_grid)
 
 
 def measured_state_rows(holdup: torch.Tensor) -> torch.Tensor:
