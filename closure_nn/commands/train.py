@@ -77,15 +77,12 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     require_complete(cfg, "train")
     from ..training.run import train  # imports Lightning
 
-    m = train(cfg)
-    val = m.get("val") or m.get("ensemble", {})
+    m = train(cfg, say=print)
     print(f"stage {m['stage']}: run folder {m['run_dir']}")
-    if "holdup_rmse" in val:
-        print(f"validation: holdup RMSE {val['holdup_rmse']:.4g} (before {m['val_initial']['holdup_rmse']:.4g}), "
-              f"pgrad relative RMS error {val['pgrad_rel_rmse']:.4g} (before {m['val_initial']['pgrad_rel_rmse']:.4g})")
     if "forgetting" in m:
         f = m["forgetting"]
-        print(f"earlier data: holdup RMSE change {f['holdup_rmse']:+.4g}, pgrad relative error change {f['pgrad_rel_rmse']:+.4g}")
+        print(f"earlier data: holdup RMSE change {f['holdup_rmse']:+.4f}, pgrad relative RMS error change "
+              f"{100 * f['pgrad_rel_rmse']:+.1f} percentage points")
     print(f"bundle: {m['bundle']}")
     print(CAUTION)
     return 0

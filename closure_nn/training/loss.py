@@ -51,11 +51,15 @@ Terms (each a weighted mean over the rows it applies to; weights in ``conf/loss/
     in the wrong pattern (an observer's call near a boundary) is solved in the wrong
     configuration, and its misfit of tens of sd would otherwise steer the closure.
 ``pattern``
-    Near-horizontal rows (theta < ``patterns.THETA_STEEP``) with an observed pattern: by default
-    (``pattern_rows='pattern_only'``) only those with neither holdup nor pgrad measured; with
-    ``pattern_rows='observed'`` every row with an observed pattern, so that rows observed
-    intermittent, annular or dispersed bubble - which have no separated configuration and feed
-    no other term - still tell the closure where stratified flow must be unstable. The
+    Near-horizontal rows (theta < ``patterns.THETA_STEEP``) with an observed pattern. By default
+    (``pattern_rows='data_first'``) every such row except those observed stratified that also
+    have holdup or pgrad: rows observed intermittent, annular or dispersed bubble - which have no
+    stratified configuration and feed no other term - still tell the closure where stratified
+    flow must be unstable, while a stratified row with data is left to its data term, so that
+    where its label contradicts the Kelvin-Helmholtz map (a layer the map calls unstable) the
+    measurement decides rather than the hinge pushing against it (such rows are counted in the
+    report of ``closure-nn fit``). ``pattern_rows='pattern_only'``: only rows with neither
+    holdup nor pgrad; ``'observed'``: every row with an observed pattern. The
     Kelvin-Helmholtz margin :math:`m = u_G/u_{G,KH} - 1` of the closure's stratified equilibrium
     (:func:`closure_nn.physics.patterns.kh_gas_velocity`, Taitel & Dukler 1976). Observed
     stratified but predicted unstable: :math:`[\max(m + \delta, 0)/t]^2`; observed intermittent,
@@ -115,7 +119,7 @@ TERMS = ("phase_residual", "combined_residual", "data_holdup", "data_pgrad", "pa
 #: default per-factor prior weights (see "Identifiability" in the module docstring)
 PRIOR_FACTORS = {"f_wl": 1.0, "f_wg": 1.0, "f_i": 0.01}
 #: which rows feed the pattern term (see ``pattern`` in the module docstring)
-PATTERN_ROWS = ("pattern_only", "observed")
+PATTERN_ROWS = ("data_first", "pattern_only", "observed")
 #: where the prior measures the distance to the baseline (see ``prior`` in the module docstring)
 PRIOR_SPACES = ("log_factor", "unbounded")
 _STRAT_CODES = tuple(CODE[p] for p in STRATIFIED_PATTERNS)
@@ -136,13 +140,13 @@ class LossSettings:
     pgrad_sd_floor: float = 1.0  # [Pa/m]
     pattern_margin: float = 0.05  # [-]
     pattern_tolerance: float = 0.05  # [-] margin shortfall that counts as one unit of the pattern term
-    pattern_rows: str = "pattern_only"  # 'pattern_only' | 'observed' (see the module docstring)
-    prior_space: str = "log_factor"  # 'log_factor' | 'unbounded' (see ``prior`` in the module docstring)
-    effective_variance: bool = False  # propagate holdup_sd into the phase-residual scale
+    pattern_rows: str = "data_first"  # 'data_first' | 'pattern_only' | 'observed' (see the module docstring)
+    prior_space: str = "unbounded"  # 'unbounded' | 'log_factor' (see ``prior`` in the module docstring)
+    effective_variance: bool = True  # propagate holdup_sd into the phase-residual scale
     #: Cauchy scale c of the phase-residual term (None: plain squares); see :func:`cauchy`
-    residual_robust_scale: float | None = None
+    residual_robust_scale: float | None = 3.0
     #: Cauchy scale c of the data-misfit terms (None: plain squares); see ``data_holdup`` above
-    data_robust_scale: float | None = None
+    data_robust_scale: float | None = 3.0
     select: str = "thinnest"
     n_grid: int = 40
 
@@ -432,6 +436,8 @@ class ClosureLoss(nn.Module):
         rows = (strat | unstable) & (batch["theta"] < THETA_STEEP)
         if self.settings.pattern_rows == "pattern_only":
             rows = rows & ~has_target
+        elif self.settings.pattern_rows == "data_first":
+            rows = rows & ~(strat & has_target)
         if not rows.any():
             return 0
         c = batch_conditions(batch, rows)

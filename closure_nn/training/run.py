@@ -48,10 +48,11 @@ from ..data.features import FeatureScaler, TrainingDomain, state_features, table
 from ..data.table_io import read_table
 from ..physics.checks import InputError
 from ..run_folder import make_run_dir, write_json
-from .loss import LossSettings
+from .loss import ClosureLoss, LossSettings
 from .metrics import accuracy
 from .module import ClosureTask, EpochTimer
 from .processes import map_in_processes
+from .scoring import NoHarmSettings, no_harm, predict_table, score_table
 from .tables import bootstrap_table, replay_sample, split_table, table_tensors
 
 STAGES = ("pretrain", "finetune", "update")
@@ -122,6 +123,47 @@ def _start_closure(cfg: DictConfig, df: pd.DataFrame, member: int) -> NeuralClos
     return closure
 
 
+def with_stage_trainer(cfg: DictConfig) -> DictConfig:
+    """A copy of ``cfg`` whose ``trainer`` values left null take the stage's defaults
+    (``stage_trainer.<stage>`` of conf/train.yaml: a pre-training sees thousands of synthetic rows,
+    a fine-tune hundreds of lab rows)."""
+    out = copy.deepcopy(cfg)
+    defaults = (cfg.get("stage_trainer") or {}).get(cfg.stage) or {}
+    for key, value in defaults.items():
+        if out.trainer.get(key) is None:
+            out.trainer[key] = value
+    missing = [k for k in ("max_epochs", "batch_size", "patience") if out.trainer.get(k) is None]
+    if missing:
+        raise InputError(f"train: trainer.{missing[0]} is not set and stage {cfg.stage} has no default for it")
+    if int(out.trainer.max_epochs) < 1:
+        raise InputError(f"train: trainer.max_epochs = {out.trainer.max_epochs}; expected a whole number >= 1")
+    return out
+
+
+#: data terms and the target each one needs
+DATA_TERMS = {"data_holdup": "holdup", "data_pgrad": "pgrad"}
+
+
+def fed_rows(closure: NeuralClosure, t: dict, loss: LossSettings) -> dict[str, int]:
+    """Rows of the tensor table ``t`` that feed each loss term with ``closure`` (one loss evaluation
+    over the whole table, no gradient); ``no_root`` counts rows without an equilibrium."""
+    with torch.no_grad():
+        _, _, counts = ClosureLoss(loss)(closure, t)
+    return {k: int(v) for k, v in counts.items()}
+
+
+def check_fed(counts: dict[str, int], t: dict, loss: LossSettings, where: str, unknown_pattern: str) -> None:
+    """Stop with a clear message when a data term should be fed (its target is measured on some
+    rows and its weight is > 0) but gets no row."""
+    for term, target in DATA_TERMS.items():
+        n_target = int(torch.isfinite(t[target]).sum())
+        if loss.weights.get(term, 0.0) > 0 and n_target and counts.get(term, 0) == 0:
+            raise InputError(
+                f"train: {where}: {n_target} row(s) have {target} but none feeds the {term} term: no row is in a "
+                f"separated configuration (stratified or annular) under data.unknown_pattern={unknown_pattern}; "
+                "give a 'pattern' column, or data.unknown_pattern=stratified if every such row is stratified")
+
+
 def _strategy(t: DictConfig):
     if t.strategy == "ddp":
         return DDPStrategy(process_group_backend=t.backend, start_method=t.start_method)
@@ -141,12 +183,14 @@ def _fit_one(cfg: DictConfig, train_df: pd.DataFrame, val_t: dict, replay_t: dic
     closure = _start_closure(cfg, train_df, member)
     w = train_df[ROW_WEIGHT].to_numpy() if ROW_WEIGHT in train_df.columns else 1.0
     train_t = table_tensors(train_df, cfg.data.unknown_pattern, weight=w)
-    metrics: dict = {"seed": seed, "val_initial": accuracy(closure, val_t, cfg.loss.select)}
+    loss = LossSettings(**OmegaConf.to_container(cfg.loss, resolve=True))
+    counts = fed_rows(closure, train_t, loss)
+    check_fed(counts, train_t, loss, str(cfg.data.get("train") or "training table"), cfg.data.unknown_pattern)
+    metrics: dict = {"seed": seed, "rows_per_term": counts, "val_initial": accuracy(closure, val_t, cfg.loss.select)}
     if replay_t is not None:
         metrics["replay_before"] = accuracy(closure, replay_t, cfg.loss.select)
     t = cfg.trainer
     lr = float(t.lr) * (1.0 if cfg.stage == "pretrain" else float(cfg.finetune.lr_factor))
-    loss = LossSettings(**OmegaConf.to_container(cfg.loss, resolve=True))
     task = ClosureTask(closure, loss, lr=lr, weight_decay=t.weight_decay, select=cfg.loss.select,
                        lr_schedule=t.lr_schedule, lr_final_factor=t.lr_final_factor, max_epochs=t.max_epochs)
     from .datamodule import TableDataModule
@@ -219,40 +263,80 @@ def _quiet_lightning() -> None:
     warnings.filterwarnings("ignore", message=r".*LeafSpec.*")
 
 
-def train(cfg: DictConfig, callbacks: list | None = None) -> dict:
+def read_training_table(path: str | Path, role: str) -> pd.DataFrame:
+    """Read and validate a training table (the checks of ``closure-nn check-data``); rejected rows
+    stop the run with the validation summary, none is dropped silently."""
+    from ..data.validate import validate_table
+
+    raw = read_table(path)
+    res = validate_table(raw, path=path)
+    if len(res.rejected):
+        raise InputError(f"train: {role} table {path}: {len(res.rejected)} of {res.n_rows} row(s) rejected by the "
+                         f"checks of check-data, e.g. {str(res.rejected['reason'].iloc[0]).split(' | ')[0]}; "
+                         f"run `closure-nn check-data {path}` for the list, fix or remove them")
+    if not len(res.clean):
+        raise InputError(f"train: {role} table {path}: no data rows")
+    clean = res.clean
+    clean.attrs["path"] = str(path)
+    return clean
+
+
+def train(cfg: DictConfig, callbacks: list | None = None, say=None) -> dict:
     """Run one training stage as configured (module docstring); returns the metrics dict.
 
+    Reads and validates the tables named in ``cfg.data`` and calls :func:`train_tables`.
     ``callbacks`` are extra Lightning callbacks (e.g. for tests or monitoring).
     """
     if cfg.stage not in STAGES:
         raise InputError(f"train: stage = {cfg.stage!r}; expected one of {', '.join(STAGES)}")
+    train_df = read_training_table(cfg.data.train, "training")
+    val_df = read_training_table(cfg.data.val, "validation") if cfg.data.val else None
+    replay = [(p, read_training_table(p, "replay")) for p in cfg.data.replay] if cfg.data.replay else []
+    return train_tables(cfg, train_df, val_df, replay=replay, callbacks=callbacks, say=say)
+
+
+def train_tables(cfg: DictConfig, train_df: pd.DataFrame, val_df: pd.DataFrame | None = None, *,
+                 replay: list[tuple[str, pd.DataFrame]] = (), callbacks: list | None = None,
+                 run_dir: Path | None = None, say=None) -> dict:
+    """One training stage on validated SI tables (module docstring); returns the metrics dict.
+
+    ``val_df``: validation rows (None: a seeded share ``data.val_fraction`` of ``train_df``). They
+    decide early stopping and, for ``finetune``/``update``, whether the new closure ships
+    (:func:`closure_nn.training.scoring.no_harm` against the starting bundle; an ensemble member
+    that does not beat its start is replaced by it). ``replay``: (path, table) pairs of earlier
+    tables. ``run_dir``: the run folder (default: a new one under ``run_root``, or the checkpoint's
+    with ``resume``). ``say``: a function that prints one progress line (None: silent).
+    """
+    if cfg.stage not in STAGES:
+        raise InputError(f"train: stage = {cfg.stage!r}; expected one of {', '.join(STAGES)}")
+    cfg = with_stage_trainer(cfg)
     _quiet_lightning()
+    say = say or (lambda _line: None)
     n_members = int(cfg.ensemble.members)
     if cfg.resume and n_members != 1:
         raise InputError("train: resume works for single-model runs (ensemble.members = 1)")
     torch.set_num_threads(int(cfg.trainer.num_threads))
-    if cfg.resume:
+    if run_dir is None and cfg.resume:
         ck = Path(cfg.resume)
         if not ck.exists():
             raise FileNotFoundError(2, "No such checkpoint", str(ck))
         run_dir = ck.resolve().parent.parent
-    else:
+    elif run_dir is None:
         run_dir = make_run_dir("train", root=cfg.run_root, name=cfg.run_name)
+    run_dir = Path(run_dir)
+    run_dir.mkdir(parents=True, exist_ok=True)
     OmegaConf.save(cfg, run_dir / "config.yaml", resolve=True)
-    train_df = read_table(cfg.data.train)
-    if cfg.data.val:
-        val_df = read_table(cfg.data.val)
-    else:
+    train_path = cfg.data.get("train") or train_df.attrs.get("path", "in-memory table")
+    if val_df is None:
         train_df, val_df = split_table(train_df, float(cfg.data.val_fraction), int(cfg.seed))
     if len(val_df) == 0:
         raise InputError("train: no validation rows; give data.val or data.val_fraction > 0")
     provenance = {"stage": cfg.stage, "init_bundle": cfg.init_bundle,
-                  "tables": [_provenance("train", cfg.data.train, train_df), _provenance("val", cfg.data.val or "split", val_df)]}
+                  "tables": [_provenance("train", train_path, train_df), _provenance("val", cfg.data.val or "split", val_df)]}
     replay_df = None
-    if cfg.stage in ("finetune", "update") and cfg.data.replay:
-        parts = [read_table(p) for p in cfg.data.replay]
-        replay_df = pd.concat(parts, ignore_index=True)
-        provenance["tables"] += [_provenance("replay", p, d) for p, d in zip(cfg.data.replay, parts)]
+    if cfg.stage in ("finetune", "update") and replay:
+        replay_df = pd.concat([d for _, d in replay], ignore_index=True)
+        provenance["tables"] += [_provenance("replay", p, d) for p, d in replay]
     elif cfg.stage == "update":
         raise InputError("train: stage update needs data.replay=[<earlier table>, ...] to replay and to measure forgetting")
     val_t = table_tensors(val_df, cfg.data.unknown_pattern)
@@ -273,6 +357,9 @@ def train(cfg: DictConfig, callbacks: list | None = None) -> dict:
     n_proc = min(int(cfg.ensemble.processes), n_members)
     if n_proc > 1 and callbacks:
         raise InputError("train: extra callbacks need ensemble.processes = 1 (they cannot be sent to worker processes)")
+    t = cfg.trainer
+    say(f"{cfg.stage}: {len(train_df)} training and {len(val_df)} validation rows, {n_members} model(s), "
+        f"up to {t.max_epochs} epochs (batch {t.batch_size}, patience {t.patience})")
     if n_proc > 1:
         # members seeded as in the sequential loop below, so they are the same as in one process
         fitted = map_in_processes(_fit_worker, [(cfg, df, val_t, replay_t, seed, out_dir, m) for df, seed, out_dir, m in jobs],
@@ -282,14 +369,21 @@ def train(cfg: DictConfig, callbacks: list | None = None) -> dict:
                   for df, seed, out_dir, m in jobs]
     members = [c for c, _ in fitted]
     member_metrics = [mm for _, mm in fitted]
+    say(f"{cfg.stage}: rows per loss term " + ", ".join(f"{k} {v}" for k, v in member_metrics[0]["rows_per_term"].items()))
+    members, development = _development(cfg, members, member_metrics, val_df)
+    provenance["selection"] = development["selection"]
+    for line in development["lines"]:
+        say(f"{cfg.stage}: {line}")
     config = OmegaConf.to_container(cfg, resolve=True)
     if n_members == 1:
-        metrics = {"stage": cfg.stage, **member_metrics[0]}
+        metrics = {"stage": cfg.stage, **member_metrics[0], "development": development["scores"],
+                   "selection": development["selection"]}
         bundle = save_bundle(members[0], run_dir / "bundle", provenance=provenance, metrics=_flatten(metrics),
                              config=config, domain=_domain_summary(members[0], cfg))
     else:
         ens = ClosureEnsemble(members)
-        metrics = {"stage": cfg.stage, "members": member_metrics, "ensemble": _ensemble_metrics(ens, val_t, cfg)}
+        metrics = {"stage": cfg.stage, "members": member_metrics, "ensemble": _ensemble_metrics(ens, val_t, cfg),
+                   "development": development["scores"], "selection": development["selection"]}
         meta = [dict(provenance=provenance, metrics=_flatten(mm), config=config, domain=_domain_summary(c, cfg))
                 for c, mm in zip(members, member_metrics)]
         bundle = save_ensemble(members, run_dir / "bundle", meta, metrics=metrics["ensemble"])
@@ -302,6 +396,66 @@ def train(cfg: DictConfig, callbacks: list | None = None) -> dict:
         for k, v in _flatten(metrics).items():
             w.writerow([k, v])
     return metrics
+
+
+#: measures of the closing message and of ``metrics.json`` ``development``
+HEADLINE = ("holdup_mae", "pgrad_within_20")
+
+
+def _headline(s: dict) -> dict:
+    keys = ("holdup_mae", "holdup_mape", "pgrad_mape", "pgrad_within_20", "pattern_accuracy", "n_holdup", "n_pgrad")
+    return {k: s.get(k) for k in keys}
+
+
+def _development(cfg: DictConfig, members: list, member_metrics: list[dict], val_df: pd.DataFrame) -> tuple[list, dict]:
+    """Score baseline, starting point and trained closure(s) on the validation rows through the
+    point solver, and apply the do-no-harm rule to each fine-tuned / updated member."""
+    solver = {"select": cfg.loss.select, "n_grid": int(cfg.loss.n_grid)}
+    base = members[0].baseline
+    scores = {"rows": int(len(val_df)), "baseline": _headline(score_table(predict_table(base, val_df, solver), val_df))}
+    selection: dict = {"rule": "none (pre-training)", "members": []}
+    starts = None
+    if cfg.stage in ("finetune", "update"):
+        init = load_bundle(cfg.init_bundle)
+        starts = list(init.members) if isinstance(init, ClosureEnsemble) else [init]
+        sel = cfg.get("selection") or {}
+        rule = NoHarmSettings(min_gain=float(sel.get("min_gain", 0.02)), confidence=float(sel.get("confidence", 0.95)),
+                              n_bootstrap=int(sel.get("n_bootstrap", 200)), seed=int(cfg.seed))
+        selection["rule"] = (f"adopt where the gain over the start exceeds {rule.min_gain:g} and its paired-bootstrap "
+                             f"lower bound ({rule.confidence:g}) is above zero")
+    shipped = []
+    for m, (closure, mm) in enumerate(zip(members, member_metrics)):
+        new_pred = predict_table(closure, val_df, solver)
+        entry = {"member": m, "trained": _headline(score_table(new_pred, val_df))}
+        if starts is not None:
+            start = starts[m % len(starts)]
+            start_pred = predict_table(start, val_df, solver)
+            entry["start"] = _headline(score_table(start_pred, val_df))
+            decision = no_harm(new_pred, start_pred, val_df, rule)
+            entry.update(decision.to_dict())
+            closure = closure if decision.adopt else start
+        shipped.append(closure)
+        selection["members"].append(entry)
+        mm["development"] = entry
+    first = selection["members"][0]
+    scores.update({"start": first.get("start"), "trained": first["trained"],
+                   "shipped": first["trained"] if first.get("adopt", True) else first.get("start")})
+    lines = []
+    fmt = lambda s: f"holdup MAE {s['holdup_mae']:.4f}, pgrad within +-20 % {_pct(s['pgrad_within_20'])}"  # noqa: E731
+    lines.append(f"validation rows ({len(val_df)}): baseline {fmt(scores['baseline'])}")
+    if first.get("start"):
+        lines.append(f"  before (start)  {fmt(first['start'])}")
+    lines.append(f"  after           {fmt(first['trained'])}")
+    if starts is not None:
+        kept = [e["member"] for e in selection["members"] if not e["adopt"]]
+        lines.append(first["reason"] if len(members) == 1 else
+                     f"{len(members) - len(kept)} of {len(members)} member(s) adopted"
+                     + (f"; member(s) {', '.join(map(str, kept))} kept their start (no gain beyond the noise)" if kept else ""))
+    return shipped, {"scores": scores, "selection": selection, "lines": lines}
+
+
+def _pct(x) -> str:
+    return "n/a" if x is None or x != x else f"{100 * x:.1f} %"
 
 
 def _domain_summary(closure: NeuralClosure, cfg: DictConfig) -> dict:
