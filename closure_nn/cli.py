@@ -23,6 +23,7 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "map": ("closure_nn.commands.map", "draw a flow-pattern map, baseline vs learned"),
     "line": ("closure_nn.commands.line", "march along a line profile: pressure, holdup, pattern, inventory"),
     "demo": ("closure_nn.commands.demo", "the end-to-end demo on the shipped invented data"),
+    "export": ("closure_nn.commands.export", "write a closure bundle as an ONNX graph or plain JSON for other solvers"),
 }
 
 

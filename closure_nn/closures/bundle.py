@@ -215,8 +215,9 @@ def export_plain(closure: NeuralClosure, path: str | os.PathLike) -> Path:
         "branches": branches,
         "measured_domain": _plain_domain(closure),
         "activation_definitions": {"silu": "x / (1 + exp(-x))", "tanh": "tanh(x)",
-                                   "softplus": "log(1 + exp(x))", "gelu": "0.5 x (1 + erf(x / sqrt(2)))"},
+                                   "softplus": "x if x > 20 else log(1 + exp(x))", "gelu": "0.5 x (1 + erf(x / sqrt(2)))"},
         "evaluation": export_plain.__doc__.split("Evaluation", 1)[1].strip(),
+        "label": closure.label, "caution": CAUTION,
     }
     p = Path(path)
     p.parent.mkdir(parents=True, exist_ok=True)
