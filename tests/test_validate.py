@@ -24,7 +24,7 @@ CORRUPT = FIXTURES / "loop_corrupt.csv"
 
 #: data row (1-based) -> (check code, column, text that must appear in the message)
 EXPECTED = {
-    2: ("type", "D", "'0,078' is not a number (expected m); use '.' as decimal point"),
+    2: ("type", "D", "'1,078' is not a number (expected m); decimal comma or thousands separator?"),
     3: ("missing", "mul", "mul is missing; a value in Pa s is required"),
     4: ("nonphysical", "vsl", "vsl = -0.05 m/s is non-physical (must be >= 0; expected [0, 50] m/s)"),
     5: ("range", "D", "D = 78 m is outside the expected range [0.001, 3] m"),
@@ -140,11 +140,14 @@ def test_no_data_rows_is_structural(tmp_path):
         validate_table(read_table(p))
 
 
-def test_semicolon_csv_is_explained(tmp_path):
+def test_semicolon_csv_with_decimal_commas_is_read_and_reported(tmp_path):
+    # ';' separators with ',' as decimal mark: spreadsheet CSV export in locales that write
+    # decimal commas (common practice)
     p = tmp_path / "excel.csv"
     p.write_text("vsl;vsg;D\n0,1;2;0,05\n")
-    with pytest.raises(InputError, match="separated by ';'"):
-        read_table(p)
+    df = read_table(p)
+    assert df[["vsl", "vsg", "D"]].iloc[0].tolist() == [0.1, 2.0, 0.05]
+    assert "separated by ';'" in df.attrs["read_notes"][0] and "decimal comma" in df.attrs["read_notes"][0]
 
 
 def test_rhog_from_equation_of_state_with_default_z():

@@ -29,13 +29,15 @@ import hashlib
 import json
 import os
 import platform
+import shutil
 import time
+import uuid
 from pathlib import Path
 
 import torch
 
 from ..caution import CAUTION
-from ..run_folder import json_default
+from ..run_folder import write_json
 from ..physics.checks import InputError
 from ..physics.groups import FEATURE_NAMES
 from .neural import OUTPUT_NAMES, NeuralClosure
@@ -77,26 +79,74 @@ def versions() -> dict[str, str]:
 
 def save_bundle(closure: NeuralClosure, path: str | os.PathLike, *, provenance: dict | None = None,
                 metrics: dict | None = None, config: dict | None = None, domain: dict | None = None) -> Path:
-    """Write ``closure`` as a bundle directory at ``path`` (created; existing files replaced)."""
+    """Write ``closure`` as a bundle directory at ``path`` and return the path.
+
+    The bundle is written into a new sibling folder and then swapped in (:func:`_swap_in`), so an
+    error or a crash while saving leaves the previous bundle at ``path`` as it was. Other files
+    a user kept in an existing bundle folder are carried over. Metadata is strict JSON (NaN and
+    infinities as ``null``).
+    """
     p = Path(path)
-    p.mkdir(parents=True, exist_ok=True)
-    wpath = p / WEIGHTS_FILE
-    state = {k: v.detach().clone() for k, v in closure.state_dict().items()}
-    torch.save(state, wpath)
-    meta = {
-        "format": BUNDLE_FORMAT, "format_version": BUNDLE_VERSION,
-        "created": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
-        "model": closure.hparams, "label": closure.label,
-        "feature_names": list(FEATURE_NAMES), "outputs": list(OUTPUT_NAMES),
-        "scaler": {"mean": closure.feature_mean.tolist(), "std": closure.feature_std.tolist()},
-        "domain": domain or {"n_points": int(closure.domain_points.shape[0]),
-                             "nn_threshold": float(closure.domain_threshold)},
-        "measured_domain": _measured_summary(closure),
-        "provenance": provenance or {}, "metrics": metrics or {}, "config": config or {},
-        "versions": versions(), "checksums": {WEIGHTS_FILE: _sha256(wpath)}, "caution": CAUTION,
-    }
-    (p / META_FILE).write_text(json.dumps(meta, indent=2, default=json_default) + "\n")
+    if p.exists() and not p.is_dir():
+        raise InputError(f"{p}: exists and is not a folder; choose another path for the bundle")
+    p.parent.mkdir(parents=True, exist_ok=True)
+    new = p.with_name(f".{p.name}.new-{os.getpid()}-{uuid.uuid4().hex[:8]}")
+    new.mkdir()
+    try:
+        wpath = new / WEIGHTS_FILE
+        state = {k: v.detach().clone() for k, v in closure.state_dict().items()}
+        torch.save(state, wpath)
+        meta = {
+            "format": BUNDLE_FORMAT, "format_version": BUNDLE_VERSION,
+            "created": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
+            "model": closure.hparams, "label": closure.label,
+            "feature_names": list(FEATURE_NAMES), "outputs": list(OUTPUT_NAMES),
+            "scaler": {"mean": closure.feature_mean.tolist(), "std": closure.feature_std.tolist()},
+            "domain": domain or {"n_points": int(closure.domain_points.shape[0]),
+                                 "nn_threshold": float(closure.domain_threshold)},
+            "measured_domain": _measured_summary(closure),
+            "provenance": provenance or {}, "metrics": metrics or {}, "config": config or {},
+            "versions": versions(), "checksums": {WEIGHTS_FILE: _sha256(wpath)}, "caution": CAUTION,
+        }
+        write_json(new / META_FILE, meta)
+        _carry_over(p, new)
+        _swap_in(new, p)
+    except BaseException:
+        shutil.rmtree(new, ignore_errors=True)
+        raise
     return p
+
+
+def _carry_over(old: Path, new: Path) -> None:
+    """Copy what a user kept in the existing bundle folder ``old`` (anything but the metadata and
+    the weights) into ``new``."""
+    if not old.is_dir():
+        return
+    for item in old.iterdir():
+        if item.name in (META_FILE, WEIGHTS_FILE):
+            continue
+        if item.is_dir() and not item.is_symlink():
+            shutil.copytree(item, new / item.name, symlinks=True)
+        else:
+            shutil.copy2(item, new / item.name, follow_symlinks=False)
+
+
+def _swap_in(new: Path, target: Path) -> None:
+    """Put the folder ``new`` at ``target``: rename the old folder aside, rename ``new`` into
+    place, delete the old one. Until the second rename the old folder is whole (it is put back if
+    that rename fails); between the two renames ``target`` is absent for an instant and the old
+    bundle sits beside it as ``.<name>.old-*``."""
+    if not target.exists():
+        os.rename(new, target)
+        return
+    aside = target.with_name(f".{target.name}.old-{os.getpid()}-{uuid.uuid4().hex[:8]}")
+    os.rename(target, aside)
+    try:
+        os.rename(new, target)
+    except BaseException:
+        os.rename(aside, target)
+        raise
+    shutil.rmtree(aside, ignore_errors=True)
 
 
 #: state-dict keys of the measured-data domain (absent from older bundles)

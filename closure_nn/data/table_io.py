@@ -8,8 +8,13 @@ Int64, str). A cell that is not a number in a numeric column is kept as its raw 
 CSV details (our own convention): lines at the top of the file starting with ``#`` are comments
 (kept in ``df.attrs['comments']`` and written back by :func:`write_table`; Parquet keeps them in
 its metadata). Blank lines are kept as empty rows so that data row numbers stay those of the
-file; validation rejects them. Fields are comma-separated, decimal point '.', UTF-8 (a byte-order
-mark from spreadsheet exports is accepted).
+file; validation rejects them. :func:`write_table` writes comma-separated UTF-8 with decimal
+point '.'; :func:`read_table` also reads files as spreadsheets export them (a byte-order mark,
+Windows-1252/Latin-1 or UTF-16 text, ';' or tab separators, decimal commas) and lists what it
+had to assume in ``df.attrs['read_notes']``. It refuses, with the file and line, what it cannot
+read without guessing: binary content, a repeated header (pandas would quietly rename the second
+one ``x.1``), values under an empty header, a row with more values than the header, a header
+without data rows.
 
 ``df.attrs['path']`` and ``df.attrs['first_data_line']`` (1-based file line of data row 1; None
 for Parquet) let validation messages name the file and line; ``df.attrs['units']`` records the
@@ -20,14 +25,19 @@ Round trip: ``read_table(write_table(df, p))`` equals ``df`` exactly for a valid
 """
 from __future__ import annotations
 
+import csv
+import io
 import math
 import os
+import re
+import warnings
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
 from ..physics.checks import InputError
+from ..run_folder import atomic_path
 from .schema import COLUMN
 from .units import from_si, parse_header, to_si
 
@@ -69,7 +79,8 @@ def numeric_or_raw(col: pd.Series) -> pd.Series:
         return col.astype(np.float64)
     if pd.api.types.is_integer_dtype(col.dtype):
         return col.astype("Float64").astype(np.float64) if col.hasnans else col.astype(np.float64)
-    cells = col.astype(object).map(_cell_to_float)
+    # a plain list: Series.map would give text-only results pandas' str dtype again
+    cells = pd.Series([_cell_to_float(x) for x in col.astype(object)], index=col.index, dtype=object)
     if all(isinstance(v, float) for v in cells):
         return cells.astype(np.float64)
     return cells
@@ -146,48 +157,240 @@ def convert_headers(df: pd.DataFrame, where: str = "") -> pd.DataFrame:
     return res
 
 
-def _read_comments(path: Path) -> tuple[list[str], str]:
+def _read_comments(text: str) -> tuple[list[str], int]:
+    """Leading ``#`` lines of ``text`` (without the '#') and the offset where the header starts."""
     comments: list[str] = []
-    with open(path, encoding="utf-8-sig", newline="") as fh:
-        for line in fh:
-            if line.startswith("#"):
-                comments.append(line[1:].rstrip("\r\n").removeprefix(" "))
+    pos = 0
+    for line in text.splitlines(keepends=True):
+        if not line.startswith("#"):
+            break
+        comments.append(line[1:].rstrip("\r\n").removeprefix(" "))
+        pos += len(line)
+    return comments, pos
+
+
+#: first bytes of files often given a .csv name by mistake -> what to tell the user
+_SIGNATURES: tuple[tuple[bytes, str], ...] = (
+    (b"PAR1", "this is a Parquet file; give it the suffix .parquet"),
+    (b"PK\x03\x04", "this is a zip archive (a spreadsheet workbook?), not CSV text; export the sheet as CSV (UTF-8)"),
+    (b"\xd0\xcf\x11\xe0", "this is an old-style spreadsheet workbook, not CSV text; export the sheet as CSV (UTF-8)"),
+    (b"%PDF", "this is a PDF document, not CSV text"),
+)
+
+
+def _read_bytes(p: Path) -> bytes:
+    if p.is_dir():
+        raise InputError(f"{p}: is a folder; give the path of a table file (.csv or .parquet)")
+    try:
+        return p.read_bytes()
+    except PermissionError:
+        raise InputError(f"{p}: no permission to read the file; check its access rights") from None
+
+
+def _read_text(p: Path) -> tuple[str, list[str]]:
+    """The text of a CSV file and notes on how it was decoded.
+
+    UTF-8 (a byte-order mark is dropped); UTF-16 with a byte-order mark (a spreadsheet's
+    "Unicode text"); any other text as Windows-1252, or Latin-1 where Windows-1252 leaves a byte
+    undefined, with a note. Binary content raises :class:`InputError`.
+    """
+    data = _read_bytes(p)
+    for sig, what in _SIGNATURES:
+        if data.startswith(sig):
+            raise InputError(f"{p}: {what}")
+    if data.startswith((b"\xff\xfe", b"\xfe\xff")):
+        try:
+            return data.decode("utf-16"), [f"{p}: read as UTF-16 (the file starts with its byte-order mark)"]
+        except UnicodeDecodeError:
+            raise InputError(f"{p}: starts with a UTF-16 byte-order mark but is not UTF-16 text; "
+                             "save the table as CSV (UTF-8)") from None
+    head = data[:65536]
+    control = sum(head.count(bytes([c])) for c in range(32) if c not in (9, 10, 13)) + head.count(b"\x7f")
+    if b"\x00" in head or control > max(2, len(head) // 200):
+        raise InputError(f"{p}: binary content (control bytes), not CSV text; give a CSV table (UTF-8 text) "
+                         "or a Parquet file with the suffix .parquet")
+    try:
+        return data.decode("utf-8-sig"), []
+    except UnicodeDecodeError as exc:
+        line = data[:exc.start].count(b"\n") + 1
+        byte = data[exc.start]
+    try:
+        text, label = data.decode("cp1252"), "Windows-1252"
+    except UnicodeDecodeError:
+        text, label = data.decode("latin-1"), "Latin-1"  # every byte is a Latin-1 character
+    return text, [f"{p}: not UTF-8 (byte 0x{byte:02x} on file line {line}), read as {label}; "
+                  "save the table as UTF-8 if accented text looks wrong"]
+
+
+#: field separators recognised in a CSV header, most common first (a tie goes to the first)
+DELIMITERS = (",", ";", "\t")
+_DELIM_NAME = {",": "','", ";": "';'", "\t": "tab"}
+#: a number written with a decimal comma: 0,54  -1,2e-3  ,5
+_DECIMAL_COMMA = re.compile(r"[+-]?(?:\d+,\d*|,\d+)(?:[eE][+-]?\d+)?")
+#: digits grouped by thousands commas (1,234  12,345,678): in a comma-separated file ambiguous
+THOUSANDS = re.compile(r"[+-]?[1-9]\d{0,2}(?:,\d{3})+")
+
+
+def _sniff(header: str) -> str:
+    """The delimiter that occurs most often in ``header`` outside double quotes (',' if none)."""
+    counts = dict.fromkeys(DELIMITERS, 0)
+    quoted = False
+    for ch in header:
+        if ch == '"':
+            quoted = not quoted
+        elif not quoted and ch in counts:
+            counts[ch] += 1
+    best = max(DELIMITERS, key=lambda d: counts[d])
+    return best if counts[best] else ","
+
+
+def _records(p: Path, body: str, delim: str, header_line: int) -> tuple[list[str], list[bool]]:
+    """Check the structure of the CSV ``body`` (header line first); return the stripped header
+    names and, per column, whether it holds any value.
+
+    Raises :class:`InputError` for a repeated header, values under an empty header, a row with
+    more values than the header has names, and a header without data rows.
+    """
+    try:
+        rows = csv.reader(io.StringIO(body, newline=""), delimiter=delim)
+        header = next(rows, [])
+        names = [h.strip() for h in header]
+        seen: dict[str, int] = {}
+        for j, name in enumerate(names):
+            if name and name in seen:
+                raise InputError(f"{p}, line {header_line}: the header names column {name!r} twice (columns "
+                                 f"{seen[name] + 1} and {j + 1}, counting from 1); rename or remove one")
+            seen.setdefault(name, j)
+        used = [False] * len(names)
+        n_rows = n_blank = 0
+        last = rows.line_num
+        for fields in rows:
+            n_rows += 1
+            line = header_line + last  # physical line where this record starts
+            last = rows.line_num
+            if not any(f.strip() for f in fields):
+                n_blank += 1
                 continue
-            return comments, line
-    return comments, ""
+            extra = [f for f in fields[len(names):] if f.strip()]
+            if extra:
+                hint = (f"; a value that contains {_DELIM_NAME[delim]} must be in double quotes "
+                        "(a number with a decimal comma?)") if delim != "\t" else ""
+                raise InputError(f"{p}, data row {n_rows} (file line {line}): {len(fields)} values, but the header "
+                                 f"names {len(names)} columns{hint}")
+            for j, f in enumerate(fields[:len(names)]):
+                used[j] = used[j] or bool(f.strip())
+    except csv.Error as exc:
+        raise InputError(f"{p}, file line {header_line + rows.line_num}: cannot read as CSV ({exc})") from None
+    if n_rows == n_blank:
+        raise InputError(f"{p}: the table has a header but no data rows" + (" (only blank lines)" if n_rows else ""))
+    for j, name in enumerate(names):
+        if not name and used[j]:
+            raise InputError(f"{p}, line {header_line}: column {j + 1} (counting from 1) has values but no header; "
+                             "name it or delete the column")
+    return names, used
+
+
+def _decimal_commas(raw: pd.DataFrame, delim: str) -> tuple[pd.DataFrame, int, str]:
+    """Read numbers written with a decimal comma ('0,54' -> 0.54).
+
+    In a ';'- or tab-separated file every column is looked at (an unknown column only when all
+    its values then read as numbers); in a comma-separated file only quoted values of schema
+    number columns, and never digits grouped like thousands ('1,234' stays text, ambiguous).
+    Returns the table, the count of values read this way and the first one as an example.
+    """
+    count, example = 0, ""
+    for pos, header in enumerate(raw.columns):
+        col = raw.iloc[:, pos]
+        if pd.api.types.is_numeric_dtype(col.dtype):
+            continue
+        spec = COLUMN.get(parse_header(str(header))[0])
+        numeric = spec is not None and spec.dtype in ("float", "int")
+        if not numeric and (delim == "," or spec is not None):
+            continue
+        cells = col.astype(object).tolist()
+        conv: list[object] = []
+        hits: list[int] = []
+        for i, x in enumerate(cells):
+            s = x.strip() if isinstance(x, str) else None
+            if s and _DECIMAL_COMMA.fullmatch(s) and not (delim == "," and THOUSANDS.fullmatch(s)):
+                conv.append(float(s.replace(",", ".")))
+                hits.append(i)
+            else:
+                conv.append(x)
+        if not hits:
+            continue
+        if not numeric and not all(isinstance(_cell_to_float(v), float) for v in conv):
+            continue
+        if not example:
+            example = f"data row {hits[0] + 1}, column {str(header)!r}: {cells[hits[0]]!r} -> {conv[hits[0]]:g}"
+        count += len(hits)
+        raw[header] = pd.Series(conv, index=raw.index, dtype=object)
+    return raw, count, example
+
+
+def _read_csv(p: Path) -> tuple[pd.DataFrame, int]:
+    """The raw CSV table (headers as written) and the file line of data row 1."""
+    text, notes = _read_text(p)
+    comments, start = _read_comments(text)
+    body = text[start:]
+    header = body.splitlines()[0] if body else ""
+    header_line = len(comments) + 1
+    if not header.strip():
+        raise InputError(f"{p}: no header line (the file is empty or holds only '#' comments)")
+    delim = _sniff(header)
+    names, used = _records(p, body, delim, header_line)
+    text_cols = [i for i, n in enumerate(names) if n and COLUMN.get(parse_header(n)[0]) is not None
+                 and COLUMN[parse_header(n)[0]].dtype == "str"]
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", pd.errors.ParserWarning)  # blank trailing fields, checked above
+            raw = pd.read_csv(io.StringIO(body), sep=delim, skip_blank_lines=False, index_col=False,
+                              dtype={i: str for i in text_cols} or None)
+    except (pd.errors.ParserError, ValueError) as exc:
+        raise InputError(f"{p}: cannot read as CSV: {str(exc).splitlines()[0]}") from None
+    keep = [j for j, n in enumerate(names) if n or used[j]]  # drop nameless empty columns (trailing separators)
+    raw = raw.iloc[:, keep]
+    raw.columns = [names[j] for j in keep]
+    raw, n_comma, example = _decimal_commas(raw, delim)
+    if delim != ",":
+        notes.append(f"{p}: values separated by {_DELIM_NAME[delim]}" +
+                     (f"; {n_comma} number(s) with a decimal comma read as numbers (e.g. {example})" if n_comma else ""))
+    elif n_comma:
+        notes.append(f"{p}: {n_comma} quoted number(s) with a decimal comma read as numbers (e.g. {example})")
+    raw.attrs = {"comments": comments} if comments else {}
+    if notes:
+        raw.attrs["read_notes"] = notes
+    return raw, header_line + 1
 
 
 def read_table(path: str | os.PathLike) -> pd.DataFrame:
     """Read a CSV or Parquet training table, converting unit headers to SI.
 
-    Raises ``FileNotFoundError`` for a missing file and :class:`InputError` for an unreadable one.
+    CSV files as people have them are read: UTF-8 with or without a byte-order mark, UTF-16 with
+    one, Windows-1252 / Latin-1 (with a note); fields separated by ',', ';' or tabs (from the
+    header line); numbers with a decimal comma where the separator is ';' or a tab, or where the
+    value is quoted. How a file was read, where that is not the plain convention, is listed in
+    ``df.attrs['read_notes']`` (validation reports these as warnings).
+
+    Raises ``FileNotFoundError`` for a missing file and :class:`InputError` (naming the file, and
+    the line where one applies) for a folder, binary content, a repeated header, a row with more
+    values than the header, or a header without data rows.
     """
     p = Path(path)
     kind = _kind(p)
     if not p.exists():
         raise FileNotFoundError(2, "No such file", str(p))
     if kind == "csv":
-        comments, header = _read_comments(p)
-        if not header.strip():
-            raise InputError(f"{p}: no header line (the file is empty or holds only '#' comments)")
-        if ";" in header and "," not in header:
-            raise InputError(f"{p}, line {len(comments) + 1}: the header is separated by ';'. "
-                             "Save the table as comma-separated values with '.' as decimal point")
-        names = [parse_header(h)[0] for h in header.rstrip("\r\n").split(",")]
-        text_cols = [i for i, n in enumerate(names) if n in COLUMN and COLUMN[n].dtype == "str"]
-        try:
-            raw = pd.read_csv(p, skiprows=len(comments), encoding="utf-8-sig", skip_blank_lines=False,
-                              dtype={i: str for i in text_cols} or None)
-        except (pd.errors.ParserError, UnicodeDecodeError) as exc:
-            raise InputError(f"{p}: cannot read as CSV: {str(exc).splitlines()[0]}") from None
-        raw.columns = [str(c).strip() for c in raw.columns]
-        raw.attrs = {"comments": comments} if comments else {}
-        first_line = len(comments) + 2
+        raw, first_line = _read_csv(p)
     else:
+        if p.is_dir():
+            raise InputError(f"{p}: is a folder; give the path of a table file (.csv or .parquet)")
         try:
             raw = pd.read_parquet(p)
         except Exception as exc:  # pyarrow raises several types for a corrupt file
             raise InputError(f"{p}: cannot read as Parquet: {str(exc).splitlines()[0]}") from None
+        if len(raw) == 0:
+            raise InputError(f"{p}: the table has columns but no data rows")
         raw = raw.reset_index(drop=True)
         first_line = None
     df = convert_headers(raw, where=str(p))
@@ -217,11 +420,12 @@ def write_table(df: pd.DataFrame, path: str | os.PathLike, unit_headers: bool = 
     keep = {k: v for k, v in df.attrs.items() if k == "comments"}
     out.attrs = keep
     p.parent.mkdir(parents=True, exist_ok=True)
-    if kind == "csv":
-        with open(p, "w", encoding="utf-8", newline="") as fh:
-            for line in keep.get("comments", []):
-                fh.write(f"# {line}\n")
-            out.to_csv(fh, index=False, lineterminator="\n")
-    else:
-        out.to_parquet(p, index=False)
+    with atomic_path(p) as tmp:  # a failed write leaves the previous file (or none), never half a table
+        if kind == "csv":
+            with open(tmp, "w", encoding="utf-8", newline="") as fh:
+                for line in keep.get("comments", []):
+                    fh.write(f"# {line}\n")
+                out.to_csv(fh, index=False, lineterminator="\n")
+        else:
+            out.to_parquet(tmp, index=False)
     return p

@@ -19,6 +19,9 @@ comment lines included), assuming no quoted field spans several lines.
 Unknown columns are kept by default (``unknown='keep'``) and reported as a warning with the
 nearest known name; ``unknown='drop'`` removes them (also reported).
 
+How :func:`~closure_nn.data.table_io.read_table` had to read the file (encoding, separator,
+decimal commas; ``df.attrs['read_notes']``) opens the warnings.
+
 Fixes that are made, always with a warning: pattern labels are folded to the vocabulary spelling
 (``'Stratified Wavy'`` -> ``'stratified_wavy'``); rhog is computed from p, T, M_g, Z where absent
 (Z = 1 where not given); missing provenance is filled (source and campaign = file stem,
@@ -40,7 +43,7 @@ from ..physics.checks import InputError
 from ..physics.vocabulary import PATTERNS
 from .schema import (COLUMN, COLUMNS, INPUTS, PROVENANCE, Z_DEFAULT, ColumnSpec, can_compute_rhog,
                      fill_gas_density, ordered_columns)
-from .table_io import convert_headers
+from .table_io import THOUSANDS, convert_headers
 from .units import from_si, slip_hint
 
 #: check code -> what it means (used in the summary)
@@ -210,11 +213,18 @@ def _structure(df: pd.DataFrame, where: str, unknown: str) -> tuple[pd.DataFrame
 def _check_numeric(df: pd.DataFrame, spec: ColumnSpec, pr: _Problems, typebad: np.ndarray) -> np.ndarray:
     """Type and range checks of one numeric column; returns its float64 values (NaN where bad)."""
     col = df[spec.name]
-    if col.dtype == object:
-        isnum = col.map(lambda v: isinstance(v, float)).to_numpy(bool)
+    if col.dtype == object or isinstance(col.dtype, pd.StringDtype):
+        col = col.astype(object)
+        isnum = np.array([isinstance(v, float) for v in col], dtype=bool)
         for i in np.flatnonzero(~isnum):
             raw = col.iloc[i]
-            hint = "; use '.' as decimal point" if re.fullmatch(r"\s*-?\d+,\d+\s*", str(raw)) else ""
+            if THOUSANDS.fullmatch(str(raw).strip()):
+                hint = ("; decimal comma or thousands separator? write it with '.' as decimal point "
+                        "and no thousands separator")
+            elif re.fullmatch(r"\s*-?\d+,\d+\s*", str(raw)):
+                hint = "; use '.' as decimal point"
+            else:
+                hint = ""
             pr.add(i, "type", spec.name, f"{raw!r} is not a number (expected {spec.unit or 'a number'}){hint}")
             typebad[i] = True
         v = np.array([x if isinstance(x, float) else np.nan for x in col], dtype=np.float64)
@@ -265,8 +275,10 @@ def validate_table(df: pd.DataFrame, path: str | Path | None = None, unknown: st
     path = str(path) if path is not None else df.attrs.get("path", "")
     where = path or "table"
     first_line = df.attrs.get("first_data_line") if (path and path.lower().endswith(".csv")) else None
+    read_notes = list(df.attrs.get("read_notes", []))
     df = convert_headers(df.reset_index(drop=True), where=where)
     df, notes = _structure(df, where, unknown)
+    notes = read_notes + notes
     n = len(df)
     pr = _Problems(where, first_line, dict(df.attrs.get("units", {})))
 
