@@ -185,6 +185,7 @@ def test_export_command_writes_onnx_and_json_files(tmp_path, capsys):
     (run2,) = (tmp_path / "runs2").iterdir()
     summary = json.loads((run2 / "export.json").read_text())
     assert summary["files"] == ["member_0.json", "member_1.json"] and summary["ensemble"]["members"] == 2
+    assert summary["baseline"]["member_1.json"]["wall"] == "churchill"
     ref = _reference()
     for name, m in zip(summary["files"], members):
         assert np.abs(ref.friction_factors(ref.load(str(run2 / name)), x, lfb) - inputs_and_truth(m)[2]).max() <= 1e-9
@@ -201,4 +202,12 @@ def test_export_command_rejects_bad_input_with_one_line(tmp_path, capsys, args, 
     assert main(["export", str(tmp_path / "notes"), *args, "--out", str(tmp_path / "runs")]) == 2
     err = capsys.readouterr().err.strip()
     assert len(err.splitlines()) == 1 and message in err and err.startswith("closure-nn export: error:")
+    assert not (tmp_path / "runs").exists()
+
+
+def test_export_command_refuses_a_gelu_bundle_for_onnx_before_writing(tmp_path, capsys):
+    b = save_bundle(closure(activation="gelu"), tmp_path / "bundle")
+    assert main(["export", str(b), "--format", "onnx", "--out", str(tmp_path / "runs")]) == 2
+    err = capsys.readouterr().err.strip()
+    assert len(err.splitlines()) == 1 and "GELU" in err and "--format json" in err
     assert not (tmp_path / "runs").exists()

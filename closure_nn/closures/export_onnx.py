@@ -67,6 +67,13 @@ ONNX_FORMAT = "closure-nn-onnx"
 ONNX_FORMAT_VERSION = 1
 INPUT_NAMES = ("features", "log_f_base")
 OUTPUT_NAME = "friction_factors"
+#: the graph's inputs and output in one line each (module docstring for the definitions)
+INPUT_DESCRIPTION = {
+    "features": f"(N, {len(FEATURE_NAMES)}) float64 raw closure features in the order of feature_names "
+                "(closure_nn.physics.groups), not standardised",
+    "log_f_base": "(N, 3) float64 ln of the baseline Fanning factors f_wl, f_wg, f_i of the same state",
+}
+OUTPUT_DESCRIPTION = {OUTPUT_NAME: "(N, 3) float64 Fanning factors f_wl, f_wg, f_i"}
 
 
 class _Softplus(nn.Module):
@@ -87,12 +94,7 @@ class ClosureGraph(nn.Module):
 
     def __init__(self, closure: NeuralClosure) -> None:
         super().__init__()
-        if not isinstance(closure, NeuralClosure):
-            raise InputError(f"ONNX export takes one neural closure, got {type(closure).__name__} "
-                             "(an ensemble is exported member by member: closure-nn export ENSEMBLE --format onnx)")
-        if closure.activation == "gelu":
-            raise InputError("ONNX export: the closure uses GELU, whose Erf has no float64 kernel in ONNX Runtime; "
-                             "use --format json (docs/closure_json_format.md)")
+        check_exportable(closure)
         self.closure = copy.deepcopy(closure).eval()
         for branch in self.closure.branches:
             for i, m in enumerate(branch):
@@ -117,12 +119,27 @@ def factors_from_features(closure: NeuralClosure, features: torch.Tensor, log_f_
     return torch.exp(c.log_f_ref + g)
 
 
+def check_exportable(closure: NeuralClosure) -> None:
+    """Raise :class:`~closure_nn.physics.checks.InputError` unless ``closure`` can be exported to
+    ONNX here: one neural closure, not GELU, with ``onnx`` and ``onnxscript`` installed."""
+    if not isinstance(closure, NeuralClosure):
+        raise InputError(f"ONNX export takes one neural closure, got {type(closure).__name__} "
+                         "(an ensemble is exported member by member: closure-nn export ENSEMBLE --format onnx)")
+    if closure.activation == "gelu":
+        raise InputError("ONNX export: the closure uses GELU, whose Erf has no float64 kernel in ONNX Runtime; "
+                         "use --format json (docs/closure_json_format.md)")
+    try:
+        import onnx  # noqa: F401
+        import onnxscript  # noqa: F401  (the dynamo exporter needs it)
+    except ImportError as exc:
+        raise InputError(f"ONNX export needs the packages onnx and onnxscript ({exc.name} is missing): "
+                         "pip install 'closure-nn[export]'") from None
+
+
 def metadata(closure: NeuralClosure) -> dict[str, str]:
     """String metadata written into the ONNX model (``metadata_props``)."""
     return {"format": ONNX_FORMAT, "format_version": str(ONNX_FORMAT_VERSION),
-            "inputs": json.dumps({"features": f"(N, {len(FEATURE_NAMES)}) float64 raw closure features, not standardised",
-                                  "log_f_base": "(N, 3) float64 ln of the baseline Fanning factors f_wl, f_wg, f_i"}),
-            "outputs": json.dumps({OUTPUT_NAME: "(N, 3) float64 Fanning factors f_wl, f_wg, f_i"}),
+            "inputs": json.dumps(INPUT_DESCRIPTION), "outputs": json.dumps(OUTPUT_DESCRIPTION),
             "feature_names": json.dumps(list(FEATURE_NAMES)), "output_names": json.dumps(list(OUTPUT_NAMES)),
             "mode": closure.mode, "baseline": json.dumps(closure.hparams["baseline"]),
             "label": closure.label, "caution": CAUTION}
@@ -134,13 +151,9 @@ def export_onnx(closure: NeuralClosure, path: str | os.PathLike) -> Path:
     Raises :class:`~closure_nn.physics.checks.InputError` for an ensemble, a GELU closure or a
     missing ``onnx``/``onnxscript`` install. Returns the path.
     """
-    try:
-        import onnx
-        import onnxscript  # noqa: F401  (the dynamo exporter needs it)
-    except ImportError as exc:
-        raise InputError(f"ONNX export needs the packages onnx and onnxscript ({exc.name} is missing): "
-                         "pip install 'closure-nn[export]'") from None
-    graph = ClosureGraph(closure)
+    graph = ClosureGraph(closure)  # check_exportable first
+    import onnx
+
     p = Path(path)
     p.parent.mkdir(parents=True, exist_ok=True)
     x = graph.closure.feature_mean.expand(2, -1).clone()
@@ -153,7 +166,7 @@ def export_onnx(closure: NeuralClosure, path: str | os.PathLike) -> Path:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             torch.onnx.export(graph, (x, lf), str(p), dynamo=True, input_names=list(INPUT_NAMES),
-                              output_names=[OUTPUT_NAME], dynamic_shapes={"features": {0: batch}, "log_f_base": {0: batch}},
+                              output_names=[OUTPUT_NAME], dynamic_shapes={name: {0: batch} for name in INPUT_NAMES},
                               external_data=False, verbose=False)
     finally:
         quiet.setLevel(level)
@@ -169,16 +182,17 @@ def export_onnx(closure: NeuralClosure, path: str | os.PathLike) -> Path:
 
 
 def check_onnx(closure: NeuralClosure, path: str | os.PathLike, n: int = 256, seed: int = 0) -> float | None:
-    """Max |f_onnx - f_torch| [-] over ``n`` random inputs (features within +-3 scaler standard deviations
-    of the scaler mean, ln f_base around typical levels), evaluated with ONNX Runtime; None when
-    ``onnxruntime`` is not installed."""
+    """Max |f_onnx - f_torch| [-] over ``n`` random inputs (features within +-3 scaler standard
+    deviations of the scaler mean, ln f_base around typical levels), evaluated with ONNX Runtime;
+    None when ``onnxruntime`` is not installed."""
     try:
         import onnxruntime as ort
     except ImportError:
         return None
     g = torch.Generator().manual_seed(seed)
-    x = closure.feature_mean + closure.feature_std * (6 * torch.rand(n, len(FEATURE_NAMES), generator=g, dtype=torch.float64) - 3)
-    lf = torch.log(torch.tensor([0.005, 0.005, 0.01], dtype=torch.float64)) + torch.randn(n, 3, generator=g, dtype=torch.float64)
+    f64 = dict(dtype=torch.float64)
+    x = closure.feature_mean + closure.feature_std * (6 * torch.rand(n, len(FEATURE_NAMES), generator=g, **f64) - 3)
+    lf = torch.log(torch.tensor([0.005, 0.005, 0.01], **f64)) + torch.randn(n, 3, generator=g, **f64)
     sess = ort.InferenceSession(str(path), providers=["CPUExecutionProvider"])
     (got,) = sess.run([OUTPUT_NAME], {INPUT_NAMES[0]: x.numpy(), INPUT_NAMES[1]: lf.numpy()})
     with torch.no_grad():

@@ -15,11 +15,6 @@ from ..caution import CAUTION
 from ..physics.checks import InputError
 
 FORMATS = ("onnx", "json")
-INPUTS = {
-    "features": "(N, 11) float64 raw closure features in the order of feature_names (closure_nn.physics.groups), "
-                "not standardised",
-    "log_f_base": "(N, 3) float64 ln of the baseline Fanning factors f_wl, f_wg, f_i of the same state",
-}
 ENSEMBLE_RULE = "f_k = exp(mean over members of ln f_k,member): the geometric mean of the members' factors"
 
 
@@ -33,6 +28,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 def run(args: argparse.Namespace, overrides: list[str]) -> int:
     from ..closures.bundle import export_plain, load_bundle
     from ..closures.ensemble import ClosureEnsemble
+    from ..closures.export_onnx import (INPUT_DESCRIPTION, OUTPUT_DESCRIPTION, check_exportable, check_onnx,
+                                           export_onnx)
     from ..closures.neural import NeuralClosure
     from ..physics.groups import FEATURE_NAMES
     from ..run_folder import make_run_dir, write_json
@@ -50,14 +47,15 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     bad = [type(m).__name__ for m in members if not isinstance(m, NeuralClosure)]
     if bad:
         raise InputError(f"{src}: only neural closures export, found {', '.join(bad)}")
+    if fmt == "onnx":
+        for m in members:
+            check_exportable(m)
     names = [f"member_{i}" for i in range(len(members))] if isinstance(closure, ClosureEnsemble) else ["closure"]
     run_dir = make_run_dir("export", args.out)
     files, checks = [], {}
     for name, m in zip(names, members):
         path = run_dir / f"{name}.{fmt}"
         if fmt == "onnx":
-            from ..closures.export_onnx import check_onnx, export_onnx
-
             export_onnx(m, path)
             checks[path.name] = check_onnx(m, path)
         else:
@@ -65,9 +63,10 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
         files.append(path.name)
     summary = {
         "source": str(src.resolve()), "format": fmt, "files": files, "closure": closure.label,
-        "inputs": INPUTS, "outputs": {"friction_factors": "(N, 3) float64 Fanning factors f_wl, f_wg, f_i"},
-        "feature_names": list(FEATURE_NAMES), "baseline": members[0].hparams["baseline"],
-        "source_checksums": {n: getattr(m, "bundle_metadata", {}).get("checksums", {}) for n, m in zip(names, members)},
+        "inputs": INPUT_DESCRIPTION, "outputs": OUTPUT_DESCRIPTION,
+        "feature_names": list(FEATURE_NAMES),
+        "baseline": {f: m.hparams["baseline"] for f, m in zip(files, members)},
+        "source_checksums": {f: getattr(m, "bundle_metadata", {}).get("checksums", {}) for f, m in zip(files, members)},
         "format_doc": ("closure_nn/closures/export_onnx.py (module docstring)" if fmt == "onnx"
                        else "docs/closure_json_format.md"),
         "caution": CAUTION,
@@ -77,7 +76,8 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     if fmt == "onnx":
         summary["onnxruntime_check"] = {
             "max_abs_diff_vs_torch": checks,
-            "inputs": "256 random feature rows within +-3 scaler standard deviations, seed 0 (null: onnxruntime missing)"}
+            "inputs": "256 random rows, features within +-3 scaler standard deviations, seed 0",
+            "null": "onnxruntime is not installed"}
     write_json(run_dir / "export.json", summary)
     for f in files:
         print(f"wrote {run_dir / f}")
