@@ -8,10 +8,13 @@ from .physics.checks import InputError
 CONF_DIR = Path(__file__).resolve().parent.parent / "conf"
 
 
-def load_config(name: str, overrides: list[str] | tuple[str, ...] = ()):
+def load_config(name: str, overrides: list[str] | tuple[str, ...] = (), config_dir: str | Path | None = None):
     """Compose ``conf/<name>.yaml`` with Hydra overrides such as ``closure.wall=churchill``.
 
-    Returns an OmegaConf DictConfig. Bad overrides become :class:`InputError`.
+    ``config_dir``: a folder of the user's own configs (same layout as conf/: groups as
+    sub-folders, e.g. ``DIR/design/my_loop.yaml``), searched BEFORE the package's, so a user adds
+    or replaces a config without editing the installed tree. Returns an OmegaConf DictConfig.
+    Bad overrides become :class:`InputError`.
     """
     from hydra import compose, initialize_config_dir
     from hydra.errors import HydraException
@@ -19,9 +22,15 @@ def load_config(name: str, overrides: list[str] | tuple[str, ...] = ()):
 
     if not (CONF_DIR / f"{name}.yaml").exists():
         raise InputError(f"no config {name!r} in {CONF_DIR}")
+    extra = []
+    if config_dir is not None:
+        d = Path(config_dir).resolve()
+        if not d.is_dir():
+            raise InputError(f"config folder {config_dir} not found (expected a folder of config groups)")
+        extra = [f"hydra.searchpath=[file://{d}]"]
     try:
         with initialize_config_dir(config_dir=str(CONF_DIR), version_base=None):
-            return compose(config_name=name, overrides=list(overrides))
+            return compose(config_name=name, overrides=[*extra, *overrides])
     except (HydraException, OmegaConfBaseException) as exc:
         raise InputError(f"config {name}: {str(exc).splitlines()[0]}") from None
 

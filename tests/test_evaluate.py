@@ -1,4 +1,4 @@
-"""Tests of the evaluation (closure_nn.training.evaluate, metrics, blackbox, report.training_plots).
+"""Tests of the evaluation (closure_nn.pipeline.evaluate, metrics, blackbox, report.training_plots).
 
 Sources: MAE, MAPE and "share within +-x %" are common-practice definitions, checked against
 values worked by hand on a toy table; a regressor that cannot fit a smooth known function is
@@ -85,7 +85,7 @@ def test_blackbox_fits_a_known_smooth_function():
 
 
 def test_grouped_split_leaves_the_chosen_group_out_entirely():
-    from closure_nn.training.evaluate import _split_indices
+    from closure_nn.pipeline.evaluate import _split_indices
 
     lab = _toy_conditions(60, 1).assign(D=np.repeat([0.05, 0.1, 0.15], 20))
     cfg = load_config("evaluate", ["splits.grouped.test_groups=[0.1]"])
@@ -114,9 +114,14 @@ def test_prior_weights_each_factor_by_its_own_weight():
             net.branches[0][-1].bias[j] = 0.2  # one shared branch; correction mode: d = tanh(0.2)
         d = math.tanh(0.2)
         for lam in (1.0, 0.01):
-            s = LossSettings(weights=w, prior_factors={key: lam})
+            s = LossSettings(weights=w, prior_factors={key: lam}, prior_space="log_factor")
             _, terms, _ = ClosureLoss(s)(net, table_tensors(df))
             assert float(terms["prior"]) == pytest.approx(lam * d**2, rel=1e-9), (key, lam)
+            # the method's prior space (conf/loss/physics.yaml): on the correction before its bound, b * o
+            # (bound 1 here, o = 0.2)
+            s = LossSettings(weights=w, prior_factors={key: lam}, prior_space="unbounded")
+            _, terms, _ = ClosureLoss(s)(net, table_tensors(df))
+            assert float(terms["prior"]) == pytest.approx(lam * 0.2**2, rel=1e-9), (key, lam)
     with pytest.raises(ValueError, match="prior_factors"):
         LossSettings(prior_factors={"f_x": 1.0})
 
@@ -124,12 +129,12 @@ def test_prior_weights_each_factor_by_its_own_weight():
 @pytest.fixture(scope="module")
 def tiny_report(tmp_path_factory):
     """A tiny end-to-end evaluation on a 300-row slice of the demo campaign (1-2 epochs)."""
-    from closure_nn.training.evaluate import load_lab, run_evaluation
+    from closure_nn.pipeline.evaluate import load_lab, run_evaluation
 
     run = tmp_path_factory.mktemp("evaluate")
-    ov = ["experiment.synth.n=300", "experiment.train.pretrain=['trainer.max_epochs=1','trainer.batch_size=256']",
-          "experiment.train.finetune=['trainer.max_epochs=1','trainer.batch_size=256']", "kfold.k=2",
-          "kfold.overrides=['trainer.max_epochs=1']", "blackbox.hidden=[8]", "processes=2"]  # splits and folds on 2 processes
+    ov = ["experiment.synth.n=300", "stage_trainer.pretrain.max_epochs=1", "stage_trainer.finetune.max_epochs=1",
+          "stage_trainer.finetune.batch_size=256", "kfold.k=2", "kfold.trainer.max_epochs=1", "blackbox.hidden=[8]",
+          "processes=2"]  # splits and folds on 2 processes
     cfg = load_config("evaluate", ov)
     lab = load_lab(cfg.lab)
     rng = np.random.default_rng(0)
@@ -138,7 +143,9 @@ def tiny_report(tmp_path_factory):
         warnings.simplefilter("ignore")
         from closure_nn.report.training_plots import evaluation_figures
 
-        return run_evaluation(cfg, lab, None, run / "out", figures=evaluation_figures), run / "out"
+        report = run_evaluation(cfg, lab, None, run / "out", figures=evaluation_figures)
+        report.pop("_kept")
+        return report, run / "out"
 
 
 def test_report_files_are_written(tiny_report):
@@ -176,7 +183,7 @@ def test_cli_evaluate_shows_its_config_and_rejects_a_missing_bundle(capsys):
 def test_development_holdout_never_scores_test_rows():
     """holdout=development scores a share of each split's TRAINING rows; its test rows stay unused
     (the protocol by which settings are chosen, docs/evaluation_log.md)."""
-    from closure_nn.training.evaluate import _split_indices, _test_splits, load_lab
+    from closure_nn.pipeline.evaluate import _split_indices, _test_splits, load_lab
 
     lab = load_lab(load_config("evaluate", []).lab)
     test = _test_splits(load_config("evaluate", []), lab)

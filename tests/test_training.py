@@ -136,9 +136,6 @@ def test_finetune_replaying_the_pretraining_table_stays_closer_to_the_baseline(t
     """A fine-tune that replays its synthetic pre-training rows (weighted) keeps the closure nearer
     the baseline on those rows than one that does not (rehearsal against forgetting, common
     practice); the lab rows still pull it away from the baseline."""
-    from closure_nn.training.evaluate import pretraining_tables
-
-    assert pretraining_tables(pretrained["bundle"]) == [str(tables["synth"])]
     common = ["stage=finetune", f"init_bundle={pretrained['bundle']}", f"data.train={tables['lab']}",
               f"run_root={tables['root']}", *TINY, "trainer.max_epochs=15", "trainer.patience=0"]
     plain = train(load_config("train", common + ["run_name=ft_plain", f"data.replay=[{tables['synth']}]",

@@ -45,46 +45,47 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     import yaml
     from omegaconf import OmegaConf
 
-    from ..data.splits import random_split
-    from ..run_folder import make_run_dir, write_json
     from ..closures.ensemble import combine_ensembles
-    from ..training.evaluate import corrupted_mask, finetune, load_lab, run_evaluation
+    from ..pipeline.evaluate import load_lab, make_synthetic, run_evaluation
+    from ..pipeline.stages import finetune, pretrain
+    from ..report.training_plots import evaluation_figures
+    from ..run_folder import make_run_dir, write_json
     from . import audit as audit_cmd
     from . import line as line_cmd
 
     cfg = load_config("demo", overrides)
+    ecfg = load_config("evaluate", list(cfg.evaluate))
     run_dir = make_run_dir("demo", args.runs or cfg.run_root)
     (run_dir / "config.yaml").write_text(OmegaConf.to_yaml(cfg))
     print(f"closure-nn demo on invented data; run folder: {run_dir}")
     seconds: dict[str, float] = {}
     t_all = time.perf_counter()
+    say = lambda line_: print("      " + line_, flush=True)  # noqa: E731
 
-    # 1. synthetic set -> pre-train -> fine-tune, held-out comparison
+    # 1. synthetic set -> pre-train -> fine-tune (the stages of `closure-nn fit`), held-out comparison
     t0 = _stage("1/4 synthetic set, pre-training, fine-tuning and held-out evaluation")
-    ecfg = load_config("evaluate", list(cfg.evaluate))
     lab = load_lab(ecfg.lab)
-    from ..report.training_plots import evaluation_figures
-
-    ev = run_evaluation(ecfg, lab, None, run_dir / "evaluation", figures=evaluation_figures)
+    synth = make_synthetic(ecfg, run_dir / "evaluation" / "synthetic")
+    say(f"{len(synth.table)} synthetic points of the baseline ({synth.report['seconds']:.0f} s); pre-training")
+    pre = pretrain(ecfg, synth.table, run_dir / "evaluation" / "train" / "pretrain", say=say)
+    say("fine-tuning and scoring the random and the grouped split (side by side)")
+    ev = run_evaluation(ecfg, lab, pre, run_dir / "evaluation", figures=evaluation_figures)
+    kept = ev.pop("_kept")
     rnd = ev["splits"]["random"]
     learned_bundle = rnd["finetune"]["bundle"]
     seconds["evaluation"] = time.perf_counter() - t0
 
     # 2. ensemble for the band: the evaluated closure plus N - 1 bootstrap members (seeds 1 .. N - 1),
-    #    fine-tuned from the same pre-trained bundle on the same training rows
+    #    fine-tuned from the same pre-trained closure on the same training rows
     members_dir = None
     n = int(cfg.ensemble_members)
     if n > 1:
         t0 = _stage(f"2/4 ensemble of {n}: the fine-tuned closure + {n - 1} bootstrap member(s)")
-        sp = ecfg.splits.random
-        tr, _ = random_split(len(lab), (1 - float(sp.test_fraction), float(sp.test_fraction)), seed=int(sp.seed))
-        rows = lab.iloc[tr]
-        rows = rows[~corrupted_mask(rows, ecfg.experiment.corruptions)]
-        seed = int(ecfg.experiment.seed) + 1
-        fm = finetune(ecfg, ev["pretrained_bundle"], rows, run_dir / "ensemble", "members",
-                      [f"ensemble.members={n - 1}", "ensemble.bootstrap=true", f"seed={seed}",
-                       f"ensemble.processes={int(cfg.ensemble_processes)}"])
-        members_dir = str(combine_ensembles([learned_bundle, fm["bundle"]], run_dir / "ensemble" / "band"))
+        rows = kept["random"]["_train"]  # the random split's training rows, corrupted rows already left out
+        fm = finetune(ecfg, pre.closure, rows, run_dir / "ensemble" / "members", say=say,
+                      **{"ensemble.members": n - 1, "ensemble.bootstrap": True, "seed": int(ecfg.experiment.seed) + 1,
+                         "ensemble.processes": int(cfg.ensemble_processes)})
+        members_dir = str(combine_ensembles([learned_bundle, str(fm.bundle)], run_dir / "ensemble" / "band"))
         seconds["ensemble"] = time.perf_counter() - t0
 
     # 3. consistency audit of the lab campaign against the learned closure

@@ -52,7 +52,7 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
         return 0
     require_complete(cfg, "evaluate")
     from ..run_folder import make_run_dir
-    from ..training.evaluate import load_lab, repo_path, run_evaluation  # imports Lightning
+    from ..pipeline.evaluate import load_lab, repo_path, run_evaluation  # imports Lightning
 
     if args.bundle and not repo_path(args.bundle).exists():
         raise FileNotFoundError(2, "No such bundle", args.bundle)
@@ -61,6 +61,7 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     from ..report.training_plots import evaluation_figures
 
     report = run_evaluation(cfg, lab, args.bundle, run_dir, figures=evaluation_figures)
+    report.pop("_kept", None)
     print("\n".join(summary_lines(report)))
     print(f"run folder: {run_dir} ({report['seconds']['total']:.0f} s)")
     print(CAUTION)

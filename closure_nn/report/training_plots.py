@@ -13,9 +13,22 @@ import pandas as pd
 
 #: one colour and marker per model, our own choice
 STYLE = {"baseline": ("#8c8c8c", "s"), "learned": ("#1a7a45", "o"), "blackbox": ("#b8452e", "^"),
-         "reference": ("#2c5d9c", "+")}
+         "boosted": ("#c98a1b", "v"), "reference": ("#2c5d9c", "+"), "pretrained": ("#7d5ba6", "D"),
+         "shipped": ("#1a7a45", "o")}
 LABEL = {"baseline": "baseline closure", "learned": "fine-tuned closure", "blackbox": "black-box MLP",
-         "reference": "reference (demo truth)"}
+         "boosted": "black-box boosted trees", "reference": "reference (demo truth)",
+         "pretrained": "pre-trained closure", "shipped": "shipped closure"}
+
+
+def _label(name: str, scores: dict | None) -> str:
+    """Legend label, with the holdup MAE and the pgrad share within +-20 % when ``scores`` has them."""
+    s = (scores or {}).get(name)
+    if not s:
+        return LABEL.get(name, name)
+    mae, w20 = s.get("holdup_mae"), s.get("pgrad_within_20")
+    txt = [f"MAE {mae:.3f}" if mae == mae and mae is not None else None,
+           f"{100 * w20:.0f} % within +-20 %" if w20 == w20 and w20 is not None else None]
+    return f"{LABEL.get(name, name)} ({', '.join(t for t in txt if t)})"
 
 
 def _plt():
@@ -41,8 +54,10 @@ def _finish(plt, fig, title: str, how: str, path: Path) -> Path:
     return path
 
 
-def parity_figure(test: pd.DataFrame, preds: dict, rows: np.ndarray, path: Path, title: str, how: str) -> Path:
-    """Predicted vs measured holdup (linear) and pgrad (symmetric log) for every model."""
+def parity_figure(test: pd.DataFrame, preds: dict, rows: np.ndarray, path: Path, title: str, how: str,
+                  scores: dict | None = None) -> Path:
+    """Predicted vs measured holdup (linear) and pgrad (symmetric log) for every model; ``scores``
+    (model -> measures) put the holdup MAE and the pgrad share within +-20 % into the legend."""
     plt = _plt()
     fig, axes = plt.subplots(1, 2, figsize=(10, 4.8))
     H, P = test["holdup"].to_numpy(float), test["pgrad"].to_numpy(float)
@@ -50,8 +65,8 @@ def parity_figure(test: pd.DataFrame, preds: dict, rows: np.ndarray, path: Path,
         c, m = STYLE.get(name, ("k", "."))
         okh = rows & np.isfinite(H) & np.isfinite(p["holdup"])
         okp = rows & np.isfinite(P) & np.isfinite(p["pgrad"])
-        axes[0].scatter(H[okh], p["holdup"][okh], s=9, c=c, marker=m, alpha=0.6, label=LABEL.get(name, name), linewidths=0.6)
-        axes[1].scatter(P[okp], p["pgrad"][okp], s=9, c=c, marker=m, alpha=0.6, label=LABEL.get(name, name), linewidths=0.6)
+        axes[0].scatter(H[okh], p["holdup"][okh], s=9, c=c, marker=m, alpha=0.6, label=_label(name, scores), linewidths=0.6)
+        axes[1].scatter(P[okp], p["pgrad"][okp], s=9, c=c, marker=m, alpha=0.6, label=_label(name, scores), linewidths=0.6)
     axes[0].plot([0, 1], [0, 1], color="k", lw=0.8)
     axes[0].set(xlim=(0, 1), ylim=(0, 1), xlabel="measured holdup [-]", ylabel="predicted holdup [-]")
     lim = np.nanmax(np.abs(P[rows])) * 1.3 if rows.any() else 1.0
@@ -64,7 +79,7 @@ def parity_figure(test: pd.DataFrame, preds: dict, rows: np.ndarray, path: Path,
     axes[1].text(0.03, 0.95, "dotted: +-20 %", transform=axes[1].transAxes, fontsize=8, va="top")
     for ax in axes:
         ax.grid(True, color="#dddddd", lw=0.5)
-    axes[0].legend(fontsize=8, loc="upper left", frameon=False)
+    axes[0].legend(fontsize=7, loc="upper left", frameon=False)
     return _finish(plt, fig, title, how, path)
 
 
@@ -162,7 +177,7 @@ def evaluation_figures(report: dict, keep: dict, run: str | Path) -> list[str]:
         how = (f"{rows}{what}; {s['n_test']} rows, {corr}); closures solved with solve_points, "
                f"black box trained on the same {s['n_train']} rows with the same epoch budget.")
         out.append(str(parity_figure(k["_test"], k["_preds"], k["_rows"]["clean"], run / f"parity_{name}.png",
-                                     f"Parity, {what}", how)))
+                                     f"Parity, {what}", how, scores=s["scores"]["clean"])))
         how_r = (f"Phase momentum balances at the MEASURED states (measured holdup and pgrad, observed separated "
                  f"pattern) of the held-out rows, {what}; in effective sd (pgrad sd and the propagated holdup sd, Orear 1982); {corr}.")
         out.append(str(residual_figure(k["_res"], run / f"residuals_{name}.png", f"Momentum residuals at measured states, {what}", how_r)))
@@ -174,5 +189,6 @@ def evaluation_figures(report: dict, keep: dict, run: str | Path) -> list[str]:
         kf = report["kfold"]
         out.append(str(kfold_figure(kf["folds"], run / "kfold.png",
                                     f"{kf['k']} random folds of the lab rows, each fine-tuned from the same pre-trained bundle with "
-                                    f"{' '.join(kf['overrides']) or 'the experiment budget'}; scored on the fold's rows, {corr}.")))
+                                    f"{', '.join(f'{k} {v}' for k, v in kf.get('trainer', {}).items()) or 'the fine-tune budget'}; "
+                                    f"scored on the fold's rows, {corr}.")))
     return out

@@ -128,7 +128,14 @@ _UNSTABLE_CODES = (CODE[INTERMITTENT], CODE[ANNULAR_PATTERN], CODE[DISPERSED_BUB
 
 @dataclass
 class LossSettings:
-    """Weights and uncertainty defaults of :class:`ClosureLoss` (``conf/loss/*.yaml``)."""
+    """Weights and uncertainty defaults of :class:`ClosureLoss`.
+
+    The defaults of this class are the plain forms of the terms (squares, no propagated holdup sd,
+    the prior on ln f, the pattern term on pattern-only rows), as the equations of the module
+    docstring read. The method's settings, validated on development rows, are the defaults of
+    ``conf/loss/physics.yaml`` (Cauchy scales 3, effective variance, the unbounded prior,
+    ``pattern_rows='data_first'``): every command and :func:`closure_nn.pipeline.fit` use those.
+    """
 
     weights: dict = field(default_factory=lambda: {"phase_residual": 1.0, "combined_residual": 1.0,
                                                    "data_holdup": 1.0, "data_pgrad": 1.0, "pattern": 1.0,
@@ -140,13 +147,13 @@ class LossSettings:
     pgrad_sd_floor: float = 1.0  # [Pa/m]
     pattern_margin: float = 0.05  # [-]
     pattern_tolerance: float = 0.05  # [-] margin shortfall that counts as one unit of the pattern term
-    pattern_rows: str = "data_first"  # 'data_first' | 'pattern_only' | 'observed' (see the module docstring)
-    prior_space: str = "unbounded"  # 'unbounded' | 'log_factor' (see ``prior`` in the module docstring)
-    effective_variance: bool = True  # propagate holdup_sd into the phase-residual scale
+    pattern_rows: str = "pattern_only"  # 'data_first' | 'pattern_only' | 'observed' (see the module docstring)
+    prior_space: str = "log_factor"  # 'log_factor' | 'unbounded' (see ``prior`` in the module docstring)
+    effective_variance: bool = False  # propagate holdup_sd into the phase-residual scale
     #: Cauchy scale c of the phase-residual term (None: plain squares); see :func:`cauchy`
-    residual_robust_scale: float | None = 3.0
+    residual_robust_scale: float | None = None
     #: Cauchy scale c of the data-misfit terms (None: plain squares); see ``data_holdup`` above
-    data_robust_scale: float | None = 3.0
+    data_robust_scale: float | None = None
     select: str = "thinnest"
     n_grid: int = 40
 

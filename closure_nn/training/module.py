@@ -80,3 +80,26 @@ class EpochTimer(L.Callback):
 
     def on_train_epoch_end(self, trainer, pl_module) -> None:
         self.seconds.append(time.perf_counter() - self._t0)
+
+
+class EpochProgress(L.Callback):
+    """One progress line every ``every`` epochs (and at the last): epoch, training and validation loss.
+
+    ``say``: a function that prints one line (e.g. ``print``)."""
+
+    def __init__(self, say, label: str, every: int = 10) -> None:
+        self.say, self.label, self.every = say, label, max(int(every), 1)
+
+    def on_validation_epoch_end(self, trainer, pl_module) -> None:
+        e = trainer.current_epoch + 1
+        if e % self.every and e != trainer.max_epochs:
+            return
+        m = trainer.callback_metrics
+        val = m.get("val/loss")
+        tr = m.get("train/loss")
+        parts = [f"{self.label}: epoch {e}/{trainer.max_epochs}"]
+        if tr is not None:
+            parts.append(f"training loss {float(tr):.4g}")
+        if val is not None:
+            parts.append(f"validation loss {float(val):.4g}")
+        self.say(", ".join(parts))

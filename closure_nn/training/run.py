@@ -31,6 +31,7 @@ import logging
 import math
 import time
 import warnings
+from dataclasses import dataclass
 from pathlib import Path
 
 import lightning as L
@@ -97,12 +98,10 @@ def _new_closure(cfg: DictConfig, df: pd.DataFrame) -> NeuralClosure:
     return closure
 
 
-def _start_closure(cfg: DictConfig, df: pd.DataFrame, member: int) -> NeuralClosure:
+def _start_closure(cfg: DictConfig, df: pd.DataFrame, member: int, init=None) -> NeuralClosure:
     if cfg.stage == "pretrain":
         return _new_closure(cfg, df)
-    if not cfg.init_bundle:
-        raise InputError(f"train: stage {cfg.stage} needs init_bundle=<bundle directory>")
-    init = load_bundle(cfg.init_bundle)
+    init = init if init is not None else _init_closure(cfg)
     closure = copy.deepcopy(init.members[member % len(init)] if isinstance(init, ClosureEnsemble) else init)
     closure.train()
     closure.freeze_layers(int(cfg.finetune.freeze_layers))
@@ -164,6 +163,13 @@ def check_fed(counts: dict[str, int], t: dict, loss: LossSettings, where: str, u
                 "give a 'pattern' column, or data.unknown_pattern=stratified if every such row is stratified")
 
 
+def _init_closure(cfg: DictConfig):
+    """The starting closure (or ensemble) of a fine-tune or update: the bundle ``init_bundle``."""
+    if not cfg.init_bundle:
+        raise InputError(f"train: stage {cfg.stage} needs init_bundle=<bundle directory>")
+    return load_bundle(cfg.init_bundle)
+
+
 def _strategy(t: DictConfig):
     if t.strategy == "ddp":
         return DDPStrategy(process_group_backend=t.backend, start_method=t.start_method)
@@ -178,9 +184,9 @@ REPLAYED = "_replayed"
 
 
 def _fit_one(cfg: DictConfig, train_df: pd.DataFrame, val_t: dict, replay_t: dict | None, seed: int,
-             out_dir: Path, member: int, callbacks: list) -> tuple[NeuralClosure, dict]:
+             out_dir: Path, member: int, callbacks: list, init=None) -> tuple[NeuralClosure, dict]:
     L.seed_everything(seed, workers=True, verbose=False)
-    closure = _start_closure(cfg, train_df, member)
+    closure = _start_closure(cfg, train_df, member, init)
     w = train_df[ROW_WEIGHT].to_numpy() if ROW_WEIGHT in train_df.columns else 1.0
     train_t = table_tensors(train_df, cfg.data.unknown_pattern, weight=w)
     loss = LossSettings(**OmegaConf.to_container(cfg.loss, resolve=True))
@@ -238,10 +244,10 @@ def _fit_one(cfg: DictConfig, train_df: pd.DataFrame, val_t: dict, replay_t: dic
 
 
 def _fit_worker(cfg: DictConfig, df: pd.DataFrame, val_t: dict, replay_t: dict | None, seed: int, out_dir: Path,
-                member: int) -> tuple[NeuralClosure, dict]:
+                member: int, init=None) -> tuple[NeuralClosure, dict]:
     """One ensemble member in a worker process (same settings as in the parent)."""
     _quiet_lightning()
-    return _fit_one(cfg, df, val_t, replay_t, seed, out_dir, member, [])
+    return _fit_one(cfg, df, val_t, replay_t, seed, out_dir, member, [], init)
 
 
 def _flatten(d: dict, prefix: str = "") -> dict:
@@ -284,7 +290,7 @@ def read_training_table(path: str | Path, role: str) -> pd.DataFrame:
 def train(cfg: DictConfig, callbacks: list | None = None, say=None) -> dict:
     """Run one training stage as configured (module docstring); returns the metrics dict.
 
-    Reads and validates the tables named in ``cfg.data`` and calls :func:`train_tables`.
+    Reads and validates the tables named in ``cfg.data`` and calls :func:`run_stage`.
     ``callbacks`` are extra Lightning callbacks (e.g. for tests or monitoring).
     """
     if cfg.stage not in STAGES:
@@ -292,13 +298,27 @@ def train(cfg: DictConfig, callbacks: list | None = None, say=None) -> dict:
     train_df = read_training_table(cfg.data.train, "training")
     val_df = read_training_table(cfg.data.val, "validation") if cfg.data.val else None
     replay = [(p, read_training_table(p, "replay")) for p in cfg.data.replay] if cfg.data.replay else []
-    return train_tables(cfg, train_df, val_df, replay=replay, callbacks=callbacks, say=say)
+    return run_stage(cfg, train_df, val_df, replay=replay, callbacks=callbacks, say=say).metrics
 
 
-def train_tables(cfg: DictConfig, train_df: pd.DataFrame, val_df: pd.DataFrame | None = None, *,
-                 replay: list[tuple[str, pd.DataFrame]] = (), callbacks: list | None = None,
-                 run_dir: Path | None = None, say=None) -> dict:
-    """One training stage on validated SI tables (module docstring); returns the metrics dict.
+@dataclass
+class StageResult:
+    """What a training stage hands on: the shipped ``closure`` (a NeuralClosure or ClosureEnsemble),
+    its ``metrics`` (as in metrics.json), the ``bundle`` folder it was saved to, and the ``trained``
+    closure (the same as ``closure`` unless the do-no-harm rule kept the start)."""
+
+    closure: object
+    metrics: dict
+    bundle: Path
+    trained: object = None
+
+
+def run_stage(cfg: DictConfig, train_df: pd.DataFrame, val_df: pd.DataFrame | None = None, *,
+              replay: list[tuple[str, pd.DataFrame]] = (), callbacks: list | None = None,
+              run_dir: Path | None = None, init=None, say=None) -> StageResult:
+    """One training stage on validated SI tables (module docstring).
+
+    ``init``: the starting closure or ensemble of a fine-tune/update (default: load ``init_bundle``).
 
     ``val_df``: validation rows (None: a seeded share ``data.val_fraction`` of ``train_df``). They
     decide early stopping and, for ``finetune``/``update``, whether the new closure ships
@@ -341,6 +361,8 @@ def train_tables(cfg: DictConfig, train_df: pd.DataFrame, val_df: pd.DataFrame |
         raise InputError("train: stage update needs data.replay=[<earlier table>, ...] to replay and to measure forgetting")
     val_t = table_tensors(val_df, cfg.data.unknown_pattern)
     replay_t = table_tensors(replay_df, cfg.data.unknown_pattern) if replay_df is not None else None
+    if cfg.stage != "pretrain" and init is None:
+        init = _init_closure(cfg)
     jobs = []
     for m in range(n_members):
         seed = int(cfg.seed) + m
@@ -362,26 +384,29 @@ def train_tables(cfg: DictConfig, train_df: pd.DataFrame, val_df: pd.DataFrame |
         f"up to {t.max_epochs} epochs (batch {t.batch_size}, patience {t.patience})")
     if n_proc > 1:
         # members seeded as in the sequential loop below, so they are the same as in one process
-        fitted = map_in_processes(_fit_worker, [(cfg, df, val_t, replay_t, seed, out_dir, m) for df, seed, out_dir, m in jobs],
+        fitted = map_in_processes(_fit_worker, [(cfg, df, val_t, replay_t, seed, out_dir, m, init)
+                                                for df, seed, out_dir, m in jobs],
                                   n_proc, threads=int(cfg.trainer.num_threads))
     else:
-        fitted = [_fit_one(cfg, df, val_t, replay_t, seed, out_dir, m, list(callbacks or []))
+        fitted = [_fit_one(cfg, df, val_t, replay_t, seed, out_dir, m, list(callbacks or []), init)
                   for df, seed, out_dir, m in jobs]
     members = [c for c, _ in fitted]
     member_metrics = [mm for _, mm in fitted]
     say(f"{cfg.stage}: rows per loss term " + ", ".join(f"{k} {v}" for k, v in member_metrics[0]["rows_per_term"].items()))
-    members, development = _development(cfg, members, member_metrics, val_df)
+    trained = members[0] if n_members == 1 else ClosureEnsemble(list(members))
+    members, development = _development(cfg, members, member_metrics, val_df, init)
     provenance["selection"] = development["selection"]
     for line in development["lines"]:
         say(f"{cfg.stage}: {line}")
     config = OmegaConf.to_container(cfg, resolve=True)
     if n_members == 1:
+        shipped = members[0]
         metrics = {"stage": cfg.stage, **member_metrics[0], "development": development["scores"],
                    "selection": development["selection"]}
         bundle = save_bundle(members[0], run_dir / "bundle", provenance=provenance, metrics=_flatten(metrics),
                              config=config, domain=_domain_summary(members[0], cfg))
     else:
-        ens = ClosureEnsemble(members)
+        ens = shipped = ClosureEnsemble(members)
         metrics = {"stage": cfg.stage, "members": member_metrics, "ensemble": _ensemble_metrics(ens, val_t, cfg),
                    "development": development["scores"], "selection": development["selection"]}
         meta = [dict(provenance=provenance, metrics=_flatten(mm), config=config, domain=_domain_summary(c, cfg))
@@ -395,7 +420,7 @@ def train_tables(cfg: DictConfig, train_df: pd.DataFrame, val_df: pd.DataFrame |
         w.writerow(["metric", "value"])
         for k, v in _flatten(metrics).items():
             w.writerow([k, v])
-    return metrics
+    return StageResult(closure=shipped, metrics=metrics, bundle=Path(bundle), trained=trained)
 
 
 #: measures of the closing message and of ``metrics.json`` ``development``
@@ -407,7 +432,8 @@ def _headline(s: dict) -> dict:
     return {k: s.get(k) for k in keys}
 
 
-def _development(cfg: DictConfig, members: list, member_metrics: list[dict], val_df: pd.DataFrame) -> tuple[list, dict]:
+def _development(cfg: DictConfig, members: list, member_metrics: list[dict], val_df: pd.DataFrame,
+                 init=None) -> tuple[list, dict]:
     """Score baseline, starting point and trained closure(s) on the validation rows through the
     point solver, and apply the do-no-harm rule to each fine-tuned / updated member."""
     solver = {"select": cfg.loss.select, "n_grid": int(cfg.loss.n_grid)}
@@ -416,7 +442,6 @@ def _development(cfg: DictConfig, members: list, member_metrics: list[dict], val
     selection: dict = {"rule": "none (pre-training)", "members": []}
     starts = None
     if cfg.stage in ("finetune", "update"):
-        init = load_bundle(cfg.init_bundle)
         starts = list(init.members) if isinstance(init, ClosureEnsemble) else [init]
         sel = cfg.get("selection") or {}
         rule = NoHarmSettings(min_gain=float(sel.get("min_gain", 0.02)), confidence=float(sel.get("confidence", 0.95)),

@@ -7,10 +7,12 @@ Everything is scored on the SAME held-out lab rows, which no model saw in traini
   :func:`closure_nn.data.splits.grouped_split`, e.g. every run of the 100 mm section;
 * **k-fold robustness** (``kfold``): k random folds with a small budget, fold errors as a box plot.
 
-For each split the pre-trained bundle is fine-tuned on the split's training rows only
-(:func:`finetune`, settings of ``conf/experiment/<name>.yaml``) and a
-:class:`~closure_nn.training.blackbox.BlackBoxRegressor` is trained on the same rows with the same
-epoch budget. Closures are scored through the point solver
+For each split the pre-trained closure is fine-tuned on the split's training rows only, through
+the stages of ``closure-nn fit`` (:func:`closure_nn.pipeline.stages.finetune`: the method's
+defaults, development rows held back, the do-no-harm rule), and two black boxes are trained on the
+same rows: a :class:`~closure_nn.training.blackbox.BlackBoxRegressor` (an MLP on raw inputs, the
+same epoch budget) and gradient-boosted trees on dimensionless groups
+(:mod:`closure_nn.training.boosted`, settings chosen on a development share of those rows). Closures are scored through the point solver
 (:func:`closure_nn.physics.point.solve_points`): it predicts the flow pattern, and
 intermittent/bubble rows get the published slug and drift-flux models, so every held-out row
 with a measurement is scored, not only the separated ones.
@@ -32,8 +34,8 @@ loss (walls anchored to the baseline wall correlation, see :mod:`closure_nn.trai
 by the data; the report therefore scores holdup, pgrad and the balances, never the individual
 factors.
 
-Public functions: :func:`load_lab`, :func:`make_synthetic`, :func:`pretrain`, :func:`finetune`,
-:func:`train_experiment` (pre-train + fine-tune for the demo), :func:`run_evaluation`.
+Public functions: :func:`load_lab`, :func:`make_synthetic`, :func:`train_experiment` (pre-train +
+fine-tune for the benchmarks), :func:`run_evaluation`.
 """
 from __future__ import annotations
 
@@ -51,20 +53,21 @@ import torch
 from omegaconf import DictConfig, OmegaConf
 
 from ..caution import CAUTION
-from ..closures.baseline import BaselineClosure
 from ..closures.bundle import load_bundle
 from ..config import CONF_DIR, load_config
-from ..data.schema import to_conditions
+from ..data.design_space import parse_design
 from ..data.splits import group_labels, grouped_split, kfold_split, random_split
-from ..data.table_io import read_table, write_table
+from ..data.table_io import read_table
 from ..physics.checks import InputError
-from ..physics.point import solve_points
 from ..run_folder import write_json
-from .blackbox import BlackBoxRegressor, BlackBoxSettings
-from .loss import LossSettings, uncertainties
-from .metrics import error_summary, measured_state_residuals, pattern_accuracy, solver_state_residuals
-from .processes import map_in_processes
-from .tables import table_tensors
+from ..training.blackbox import BlackBoxRegressor, BlackBoxSettings
+from ..training.loss import LossSettings, uncertainties
+from ..training.metrics import measured_state_residuals
+from ..training.processes import map_in_processes
+from ..training.run import StageResult, with_stage_trainer
+from ..training.scoring import predict_table, score_table
+from ..training.tables import table_tensors
+from .stages import baseline_of, finetune, pretrain, stage_config, synthesize_design
 
 REPO = CONF_DIR.parent
 SUBSETS = ("clean", "all")
@@ -102,146 +105,66 @@ def corrupted_mask(df: pd.DataFrame, path: str | Path | None) -> np.ndarray:
 
 
 def _exp(cfg: DictConfig) -> DictConfig:
-    return cfg.experiment if "experiment" in cfg else cfg
+    return cfg.experiment
 
 
-def train_config(cfg: DictConfig, stage: str, overrides: list[str] | tuple[str, ...] = ()) -> DictConfig:
-    """conf/train.yaml composed with the experiment's ``train.common`` + ``train.<stage>`` overrides."""
-    e = _exp(cfg)
-    return load_config("train", [*e.train.common, *e.train[stage], *overrides])
-
-
-def _baseline(tcfg: DictConfig) -> BaselineClosure:
-    from .run import _baseline_kwargs
-
-    return BaselineClosure(**_baseline_kwargs(tcfg))
-
-
-def make_synthetic(cfg: DictConfig, out_dir: str | Path) -> Path:
-    """Synthetic pre-training table of the experiment (``experiment.synth``: design, n, seed),
-    labelled by the experiment's baseline closure; written to ``out_dir/synthetic.parquet``."""
-    from ..data.design_space import parse_design
-    from ..data.synthetic import synthesize
-
+def make_synthetic(cfg: DictConfig, out_dir: str | Path):
+    """The experiment's synthetic pre-training set (``experiment.synth``: design, n, seed), labelled
+    by the config's baseline; its report and table are kept in ``out_dir`` as provenance."""
     e = _exp(cfg)
     scfg = load_config("synth", [f"design={e.synth.design}"])
     space = parse_design(OmegaConf.to_container(scfg.design, resolve=True))
-    s = synthesize(space, int(e.synth.n), int(e.synth.seed), _baseline(train_config(cfg, "pretrain")),
-                   solver=OmegaConf.to_container(scfg.solver, resolve=True), progress=False)
+    s = synthesize_design(cfg, space, int(e.synth.n), int(e.synth.seed))
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
     write_json(out / "synthetic_report.json", s.report)
-    return write_table(s.table, out / "synthetic.parquet")
-
-
-def pretrain(cfg: DictConfig, table: str | Path, run_root: str | Path, name: str = "pretrain") -> dict:
-    """Pre-train on a synthetic table with the experiment settings; returns the train metrics."""
-    from .run import train
-
-    return train(train_config(cfg, "pretrain", [f"data.train={table}", f"run_root={run_root}", f"run_name={name}"]))
-
-
-def pretraining_tables(bundle: str | Path) -> list[str]:
-    """Paths of the training tables a bundle (or an ensemble's first member) was PRE-trained on,
-    from its provenance (``bundle.json``); empty if it was not a pre-training run."""
-    b = Path(bundle)
-    meta_file = b / "bundle.json" if (b / "bundle.json").exists() else b / "member_0" / "bundle.json"
-    prov = json.loads(meta_file.read_text()).get("provenance", {})
-    if prov.get("stage") != "pretrain":
-        return []
-    return [t["path"] for t in prov.get("tables", []) if t.get("role") == "train"]
-
-
-def replay_overrides(cfg: DictConfig, init_bundle: str | Path) -> list[str]:
-    """Train overrides that make a fine-tune replay the init bundle's pre-training table
-    (``experiment.replay_pretraining``: share and row weight; none if null), so that where the
-    lab rows are silent the closure keeps what it learned from the baseline."""
-    r = _exp(cfg).get("replay_pretraining")
-    if not r:
-        return []
-    tables = pretraining_tables(init_bundle)
-    missing = [t for t in tables if not Path(t).exists()]
-    if not tables or missing:
-        raise InputError(f"finetune: experiment.replay_pretraining is set but the pre-training table of {init_bundle} "
-                         f"is {'unknown' if not tables else 'missing: ' + ', '.join(missing)}; "
-                         "set experiment.replay_pretraining=null or pre-train again")
-    return [f"data.replay=[{','.join(tables)}]", f"data.replay_fraction={float(r.fraction)}",
-            f"data.replay_weight={float(r.weight)}"]
-
-
-def finetune(cfg: DictConfig, init_bundle: str | Path, rows: pd.DataFrame, run_root: str | Path, name: str,
-             overrides: list[str] | tuple[str, ...] = ()) -> dict:
-    """Fine-tune ``init_bundle`` on the lab ``rows`` (written to ``run_root/<name>_rows.parquet``),
-    replaying its pre-training table as ``experiment.replay_pretraining`` says."""
-    from .run import train
-
-    root = Path(run_root)
-    root.mkdir(parents=True, exist_ok=True)
-    table = write_table(rows.reset_index(drop=True), root / f"{name}_rows.parquet")
-    return train(train_config(cfg, "finetune", ["stage=finetune", f"init_bundle={init_bundle}", f"data.train={table}",
-                                                f"run_root={root}", f"run_name={name}",
-                                                *replay_overrides(cfg, init_bundle), *overrides]))
+    s.table.to_parquet(out / "synthetic.parquet")
+    return s
 
 
 def train_experiment(cfg: DictConfig, lab_df: pd.DataFrame, run_dir: str | Path, rows: np.ndarray | None = None,
                      members: int | None = None) -> dict:
-    """Synthetic set -> pre-train -> fine-tune on the lab rows, with the experiment settings.
+    """Synthetic set -> pre-train -> fine-tune on the lab rows, through the stages of ``fit``.
 
     ``rows``: positions of ``lab_df`` to fine-tune on (default all); corrupted rows of the
     experiment's list are dropped first when ``experiment.exclude_corrupted``. ``members``:
     ensemble size of the fine-tuned bundle (default ``experiment.members``; the members share the
-    pre-trained start and differ by seed and bootstrap). Returns the paths (``synthetic``,
-    ``pretrained``, ``finetuned`` bundle directories) and timings [s] measured with
-    ``time.perf_counter``.
+    pre-trained start and differ by seed and bootstrap). Returns the stage results, the bundle
+    folders and timings [s] measured with ``time.perf_counter``.
     """
     e = _exp(cfg)
     out = Path(run_dir)
     t0 = time.perf_counter()
     synth = make_synthetic(cfg, out / "synthetic")
     t1 = time.perf_counter()
-    pm = pretrain(cfg, synth, out / "train")
+    pre = pretrain(cfg, synth.table, out / "train" / "pretrain")
     t2 = time.perf_counter()
     df = lab_df if rows is None else lab_df.iloc[np.asarray(rows)]
     if e.exclude_corrupted:
         df = df[~corrupted_mask(df, e.corruptions)]
     n = int(members if members is not None else e.members)
-    fm = finetune(cfg, pm["bundle"], df, out / "train", "finetune",
-                  [f"ensemble.members={n}", f"ensemble.bootstrap={str(n > 1).lower()}"])
+    ft = finetune(cfg, pre.closure, df, out / "train" / "finetune",
+                  **{"ensemble.members": n, "ensemble.bootstrap": n > 1})
     t3 = time.perf_counter()
-    return {"synthetic": str(synth), "pretrained": pm["bundle"], "finetuned": fm["bundle"],
-            "pretrain_run": pm["run_dir"], "finetune_run": fm["run_dir"], "members": n, "n_finetune_rows": int(len(df)),
+    return {"pretrain": pre, "finetune": ft, "pretrained": str(pre.bundle), "finetuned": str(ft.bundle),
+            "members": n, "n_finetune_rows": int(len(df)),
             "seconds": {"synthetic": t1 - t0, "pretrain": t2 - t1, "finetune": t3 - t2, "total": t3 - t0}}
 
 
 # --------------------------------------------------------------------------- prediction and scoring
-def predict(model, df: pd.DataFrame, solver: dict) -> dict[str, np.ndarray]:
-    """Holdup, pgrad, pattern (None for the black box) and the solver-state residual ``(N,)``."""
-    if isinstance(model, BlackBoxRegressor):
-        p = model.predict(df)
-        return {**p, "pattern": np.full(len(df), None, dtype=object), "solver_residual": np.full(len(df), np.nan)}
-    cond = to_conditions(df, check=True)
-    with torch.no_grad():
-        r = solve_points(cond, model, **solver)
-        res = solver_state_residuals(model, cond, r)
-    cols = r.to_columns()
-    return {"holdup": cols["holdup"], "pgrad": cols["pgrad"], "pattern": cols["pattern"], "solver_residual": res}
-
-
 def score(preds: dict[str, dict], df: pd.DataFrame, rows: np.ndarray, sc: DictConfig) -> dict[str, dict]:
     """Scores of every model on the same ``rows`` (bool ``(N,)``): a measurement counts only where
     every model has a finite prediction; each model's own misses are reported as ``n_*_missing``."""
-    H = np.where(rows, df["holdup"].to_numpy(np.float64), np.nan)
-    P = np.where(rows, df["pgrad"].to_numpy(np.float64), np.nan)
-    obs = np.array([p if (rows[i] and isinstance(p, str)) else None for i, p in enumerate(df["pattern"].tolist())], dtype=object)
+    H, P = df["holdup"].to_numpy(np.float64), df["pgrad"].to_numpy(np.float64)
     all_h = np.logical_and.reduce([np.isfinite(p["holdup"]) for p in preds.values()])
     all_p = np.logical_and.reduce([np.isfinite(p["pgrad"]) for p in preds.values()])
+    common = df.assign(holdup=np.where(all_h, H, np.nan), pgrad=np.where(all_p, P, np.nan))
     out = {}
     for name, p in preds.items():
-        own = error_summary(p["holdup"], H, p["pgrad"], P, sc.holdup_floor, sc.pgrad_floor)
-        s = error_summary(p["holdup"], np.where(all_h, H, np.nan), p["pgrad"], np.where(all_p, P, np.nan),
-                          sc.holdup_floor, sc.pgrad_floor)
+        own = score_table(p, df, rows, sc.holdup_floor, sc.pgrad_floor)
+        s = score_table(p, common, rows, sc.holdup_floor, sc.pgrad_floor)
         s["n_holdup_missing"], s["n_pgrad_missing"] = own["n_holdup_missing"], own["n_pgrad_missing"]
-        out[name] = {**s, **pattern_accuracy(p["pattern"], obs)}
+        out[name] = s
     return out
 
 
@@ -267,54 +190,67 @@ def residuals(closures: dict, df: pd.DataFrame, rows: np.ndarray, tcfg: DictConf
     return out
 
 
-def _blackbox_settings(cfg: DictConfig, tcfg: DictConfig, seed: int) -> BlackBoxSettings:
+def _blackbox_settings(cfg: DictConfig, seed: int) -> BlackBoxSettings:
     """Same budget as the closure's fine-tune: epochs, batch size, patience, validation share;
     the learning rate of a training from scratch (``trainer.lr``)."""
-    b, t = cfg.blackbox, tcfg.trainer
+    b, t = cfg.blackbox, with_stage_trainer(stage_config(cfg, "finetune")).trainer
     return BlackBoxSettings(hidden=tuple(b.hidden), activation=b.activation, max_epochs=int(t.max_epochs),
                             batch_size=int(t.batch_size), lr=float(t.lr), weight_decay=float(t.weight_decay),
-                            patience=int(t.patience), val_fraction=float(tcfg.data.val_fraction),
+                            patience=int(t.patience), val_fraction=float(cfg.data.val_fraction),
                             holdup_scale=float(b.holdup_scale), pgrad_scale=float(b.pgrad_scale), seed=seed)
 
 
+def _black_boxes(cfg: DictConfig, rows: pd.DataFrame) -> tuple[dict, dict]:
+    """The black-box regressors trained on ``rows`` (the MLP on raw inputs and, with
+    ``boosted.enabled``, gradient-boosted trees on dimensionless groups), and their timings."""
+    out, info = {}, {}
+    t0 = time.perf_counter()
+    out["blackbox"] = BlackBoxRegressor(_blackbox_settings(cfg, int(_exp(cfg).seed))).fit(rows)
+    info["blackbox"] = {"epochs": len(out["blackbox"].history), "seconds": time.perf_counter() - t0}
+    if cfg.boosted.enabled:
+        from ..training.boosted import BoostedGroupsRegressor, BoostedSettings
+
+        t0 = time.perf_counter()
+        out["boosted"] = BoostedGroupsRegressor(BoostedSettings(seed=int(_exp(cfg).seed))).fit(rows)
+        info["boosted"] = {"chosen": getattr(out["boosted"], "chosen", None), "seconds": time.perf_counter() - t0}
+    return out, info
+
+
 def evaluate_split(cfg: DictConfig, name: str, lab: pd.DataFrame, train_idx: np.ndarray, test_idx: np.ndarray,
-                   corrupt: np.ndarray, init_bundle: str, run_dir: Path, overrides: tuple[str, ...] = (),
-                   keep: bool = True) -> dict:
-    """Fine-tune + black box on ``train_idx``, score every model on ``test_idx`` (module docstring)."""
+                   corrupt: np.ndarray, init, run_dir: Path, trainer: dict | None = None, keep: bool = True) -> dict:
+    """Fine-tune ``init`` (the pre-trained closure) and the black boxes on ``train_idx``, score every
+    model on ``test_idx`` (module docstring). ``trainer``: trainer settings of this call (k-fold budget)."""
     e = _exp(cfg)
     solver = OmegaConf.to_container(cfg.solver, resolve=True)
     tr = lab.iloc[train_idx]
     if e.exclude_corrupted:
         tr = tr[~corrupt[train_idx]]
     t0 = time.perf_counter()
-    fm = finetune(cfg, init_bundle, tr, run_dir / "train", f"finetune-{name}", overrides)
+    values = {f"trainer.{k}": v for k, v in (trainer or {}).items()}
+    ft = finetune(cfg, init, tr, run_dir / "train" / f"finetune-{name}", **values)
     t_ft = time.perf_counter() - t0
-    tcfg = train_config(cfg, "finetune", overrides)
-    learned = load_bundle(fm["bundle"])
-    t0 = time.perf_counter()
-    bb = BlackBoxRegressor(_blackbox_settings(cfg, tcfg, int(e.seed))).fit(tr)
-    t_bb = time.perf_counter() - t0
-    base = _baseline(tcfg)
-    models = {"baseline": base, "learned": learned, "blackbox": bb}
+    boxes, box_info = _black_boxes(cfg, tr)
+    models = {"baseline": baseline_of(cfg), "learned": ft.closure, **boxes}
     if cfg.scoring.oracle:
         from ..data.demo_reference import ReferenceClosure
 
         models["reference"] = ReferenceClosure()
     test = lab.iloc[test_idx].reset_index(drop=True)
-    preds = {k: predict(m, test, solver) for k, m in models.items()}
+    preds = {k: predict_table(m, test, solver) for k, m in models.items()}
     bad = corrupt[test_idx]
     rows = {"clean": ~bad, "all": np.ones(len(test), dtype=bool)}
     out = {"n_train": int(len(tr)), "n_test": int(len(test)), "n_test_corrupted": int(bad.sum()),
            "scores": {s: score(preds, test, rows[s], cfg.scoring) for s in SUBSETS},
-           "finetune": {"run_dir": fm["run_dir"], "bundle": fm["bundle"], "epochs": fm.get("epochs"), "seconds": t_ft},
-           "blackbox": {"epochs": len(bb.history), "seconds": t_bb}}
-    sr = {k: p["solver_residual"] for k, p in preds.items() if k != "blackbox"}
+           "finetune": {"run_dir": str(ft.bundle.parent), "bundle": str(ft.bundle), "epochs": ft.metrics.get("epochs"),
+                        "seconds": t_ft, "selection": ft.metrics["selection"]["members"][0].get("reason")},
+           **box_info}
+    sr = {k: p["solver_residual"] for k, p in preds.items() if k not in boxes}
     out["solver_residual_max"] = {k: float(np.nanmax(v)) if np.isfinite(v).any() else math.nan for k, v in sr.items()}
-    closures = {k: m for k, m in models.items() if k != "blackbox"}
-    res = residuals(closures, test, rows["clean"], tcfg)
+    closures = {k: m for k, m in models.items() if k not in boxes}
+    res = residuals(closures, test, rows["clean"], cfg)
     out["measured_residuals"] = {k: v["summary"] for k, v in res.items()}
     if keep:
-        out["_preds"], out["_test"], out["_res"], out["_rows"] = preds, test, res, rows
+        out["_preds"], out["_test"], out["_res"], out["_rows"], out["_train"] = preds, test, res, rows, tr
         cols = {c: test[c] for c in ("run_id", "D", "theta", "vsl", "vsg", "holdup", "pgrad", "pattern") if c in test}
         tab = pd.DataFrame(cols).assign(corrupted=bad)
         for k, p in preds.items():
@@ -390,14 +326,15 @@ def _flat_rows(report: dict) -> list[tuple]:
     return rows
 
 
-def run_evaluation(cfg: DictConfig, lab_df: pd.DataFrame, bundle_dir: str | Path | None, run_dir: str | Path,
+def run_evaluation(cfg: DictConfig, lab_df: pd.DataFrame, pretrained: StageResult | str | Path | None, run_dir: str | Path,
                    figures: Callable[[dict, dict, Path], list[str]] | None = None) -> dict:
     """The evaluation report (module docstring) written into ``run_dir``; returns it as a dict.
 
     ``cfg``: conf/evaluate.yaml composed (its ``experiment`` group holds the training settings).
-    ``lab_df``: the validated SI lab table (:func:`load_lab`). ``bundle_dir``: the PRE-TRAINED
-    bundle every split is fine-tuned from (None: pre-train here on the experiment's synthetic
-    set). Files: ``evaluation.json``, ``evaluation.csv`` (split, subset, model, metric, value),
+    ``lab_df``: the validated SI lab table (:func:`load_lab`). ``pretrained``: the pre-training
+    stage (or the folder of a PRE-TRAINED bundle) every split is fine-tuned from (None: pre-train
+    here on the experiment's synthetic set). The returned dict also holds, under ``_kept``, the
+    predictions and training rows of every split (not written to evaluation.json). Files: ``evaluation.json``, ``evaluation.csv`` (split, subset, model, metric, value),
     ``predictions_<split>.csv``, ``parity_<split>.png``, ``residuals_<split>.png``,
     ``training_curves.png``, ``kfold.png``, ``CAUTION.txt``. ``figures``: the figure writer
     (``closure_nn.report.training_plots.evaluation_figures``, passed in by the commands so that
@@ -415,11 +352,15 @@ def run_evaluation(cfg: DictConfig, lab_df: pd.DataFrame, bundle_dir: str | Path
         raise InputError(f"evaluate: {lab_df.attrs.get('path', 'lab table')}: {len(lab_df)} rows; need at least 10")
     corrupt = corrupted_mask(lab_df, e.corruptions)
     timing = {}
-    if bundle_dir is None:
+    if pretrained is None:
         t0 = time.perf_counter()
         synth = make_synthetic(cfg, run / "synthetic")
-        bundle_dir = pretrain(cfg, synth, run / "train")["bundle"]
+        pretrained = pretrain(cfg, synth.table, run / "train" / "pretrain")
         timing["synthetic_and_pretrain"] = time.perf_counter() - t0
+    if isinstance(pretrained, StageResult):
+        init, bundle_dir = pretrained.closure, pretrained.bundle
+    else:
+        init, bundle_dir = load_bundle(pretrained), pretrained
     report: dict = {"caution": CAUTION, "lab": lab_df.attrs.get("path", ""), "n_lab_rows": int(len(lab_df)),
                     "pretrained_bundle": str(bundle_dir), "corrupted_rows": int(corrupt.sum()),
                     "corrupted_rows_in_training": not bool(e.exclude_corrupted),
@@ -436,23 +377,24 @@ def run_evaluation(cfg: DictConfig, lab_df: pd.DataFrame, bundle_dir: str | Path
     n_proc = int(cfg.processes)
     splits = _split_indices(cfg, lab_df)
     t0 = time.perf_counter()
-    results = _map_splits([(cfg, name, lab_df, tr, te, corrupt, str(bundle_dir), run) for name, (tr, te, _) in splits.items()],
+    results = _map_splits([(cfg, name, lab_df, tr, te, corrupt, init, run) for name, (tr, te, _) in splits.items()],
                           n_proc)
     timing["splits"] = time.perf_counter() - t0
     for (name, (_, _, info)), r in zip(splits.items(), results):
-        keep[name] = {k: r.pop(k) for k in ("_preds", "_test", "_res", "_rows")}
+        keep[name] = {k: r.pop(k) for k in ("_preds", "_test", "_res", "_rows", "_train")}
         report["splits"][name] = {**info, **r}
     if int(cfg.kfold.k) >= 2 and cfg.holdout == "development":
         report["kfold"] = {"skipped": "holdout: development (k-fold would score rows of the test splits)"}
     elif int(cfg.kfold.k) >= 2:
         t0 = time.perf_counter()
         folds: dict[str, list] = {}
-        jobs = [(cfg, f"fold{i}", lab_df, tr, va, corrupt, str(bundle_dir), run / "kfold", tuple(cfg.kfold.overrides), False)
+        budget = OmegaConf.to_container(cfg.kfold.trainer, resolve=True)
+        jobs = [(cfg, f"fold{i}", lab_df, tr, va, corrupt, init, run / "kfold", budget, False)
                 for i, (tr, va) in enumerate(kfold_split(len(lab_df), int(cfg.kfold.k), seed=int(cfg.kfold.seed)))]
         for r in _map_splits(jobs, n_proc):
             for model, m in r["scores"]["clean"].items():
                 folds.setdefault(model, []).append(m)
-        report["kfold"] = {"k": int(cfg.kfold.k), "overrides": list(cfg.kfold.overrides), "subset": "clean", "folds": folds}
+        report["kfold"] = {"k": int(cfg.kfold.k), "trainer": budget, "subset": "clean", "folds": folds}
         timing["kfold"] = time.perf_counter() - t0
     report["seconds"] = {**timing, "total": time.perf_counter() - t_start}
     write_json(run / "evaluation.json", report)
@@ -463,4 +405,4 @@ def run_evaluation(cfg: DictConfig, lab_df: pd.DataFrame, bundle_dir: str | Path
     if cfg.plots and figures is not None:
         report["figures"] = figures(report, keep, run)
         write_json(run / "evaluation.json", report)
-    return report
+    return {**report, "_kept": keep}
