@@ -30,9 +30,10 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     from ..run_folder import make_run_dir, write_json
 
     cfg = load_config("map", overrides)
-    fluids = dict(OmegaConf.to_container(cfg.fluids, resolve=True))
-    kw = dict(D=float(cfg.D), theta_deg=float(cfg.theta_deg), fluids=fluids, roughness=float(cfg.roughness),
-              vsl=tuple(cfg.vsl), vsg=tuple(cfg.vsg), n=int(cfg.n), solver=dict(cfg.solver))
+    fluids = {k: _number(v, f"fluids.{k}") for k, v in OmegaConf.to_container(cfg.fluids, resolve=True).items()}
+    kw = dict(D=_number(cfg.D, "D"), theta_deg=_number(cfg.theta_deg, "theta_deg"), fluids=fluids,
+              roughness=_number(cfg.roughness, "roughness"), vsl=_axis(cfg.vsl, "vsl"), vsg=_axis(cfg.vsg, "vsg"),
+              n=_count(cfg.n), solver=dict(cfg.solver))
     from ..physics.checks import check_conditions
     from ..physics.conditions import make_conditions
 
@@ -72,3 +73,33 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
         print(note)
     print(CAUTION)
     return 0
+
+
+def _number(value, key: str) -> float:
+    """``value`` of the map config as a float, else InputError naming the key."""
+    from ..physics.checks import InputError
+
+    try:
+        return float(value)
+    except (TypeError, ValueError):
+        raise InputError(f"config map: {key} = {value!r}; expected a number") from None
+
+
+def _axis(value, key: str) -> tuple[float, float]:
+    """An axis range ``[low, high]`` [m/s] with 0 < low < high."""
+    from ..physics.checks import InputError
+
+    vals = [_number(v, key) for v in (value if not isinstance(value, (str, int, float)) else [value])]
+    if len(vals) != 2 or not 0 < vals[0] < vals[1]:
+        raise InputError(f"config map: {key} = {vals}; expected [low, high] in m/s with 0 < low < high "
+                         "(the axis is logarithmic)")
+    return vals[0], vals[1]
+
+
+def _count(value) -> int:
+    """Grid points per axis: a whole number >= 2."""
+    from ..physics.checks import InputError
+
+    if isinstance(value, bool) or not isinstance(value, int) or value < 2:
+        raise InputError(f"config map: n = {value!r}; expected a whole number >= 2 (grid points per axis)")
+    return value

@@ -30,7 +30,6 @@ import io
 import math
 import os
 import re
-import warnings
 from pathlib import Path
 
 import numpy as np
@@ -244,9 +243,9 @@ def _sniff(header: str) -> str:
     return best if counts[best] else ","
 
 
-def _records(p: Path, body: str, delim: str, header_line: int) -> tuple[list[str], list[bool]]:
+def _records(p: Path, body: str, delim: str, header_line: int) -> tuple[list[str], list[bool], int]:
     """Check the structure of the CSV ``body`` (header line first); return the stripped header
-    names and, per column, whether it holds any value.
+    names, per column whether it holds any value, and the largest number of fields in a row.
 
     Raises :class:`InputError` for a repeated header, values under an empty header, a row with
     more values than the header has names, and a header without data rows.
@@ -263,9 +262,11 @@ def _records(p: Path, body: str, delim: str, header_line: int) -> tuple[list[str
             seen.setdefault(name, j)
         used = [False] * len(names)
         n_rows = n_blank = 0
+        widest = len(names)
         last = rows.line_num
         for fields in rows:
             n_rows += 1
+            widest = max(widest, len(fields))
             line = header_line + last  # physical line where this record starts
             last = rows.line_num
             if not any(f.strip() for f in fields):
@@ -287,7 +288,7 @@ def _records(p: Path, body: str, delim: str, header_line: int) -> tuple[list[str
         if not name and used[j]:
             raise InputError(f"{p}, line {header_line}: column {j + 1} (counting from 1) has values but no header; "
                              "name it or delete the column")
-    return names, used
+    return names, used, widest
 
 
 def _decimal_commas(raw: pd.DataFrame, delim: str) -> tuple[pd.DataFrame, int, str]:
@@ -338,14 +339,14 @@ def _read_csv(p: Path) -> tuple[pd.DataFrame, int]:
     if not header.strip():
         raise InputError(f"{p}: no header line (the file is empty or holds only '#' comments)")
     delim = _sniff(header)
-    names, used = _records(p, body, delim, header_line)
+    names, used, widest = _records(p, body, delim, header_line)
     text_cols = [i for i, n in enumerate(names) if n and COLUMN.get(parse_header(n)[0]) is not None
                  and COLUMN[parse_header(n)[0]].dtype == "str"]
     try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", pd.errors.ParserWarning)  # blank trailing fields, checked above
-            raw = pd.read_csv(io.StringIO(body), sep=delim, skip_blank_lines=False, index_col=False,
-                              dtype={i: str for i in text_cols} or None)
+        # fields beyond the header are blank (checked above): read them under placeholder names, then drop
+        padded = [f"\x00{j}" for j in range(widest)]
+        raw = pd.read_csv(io.StringIO(body), sep=delim, skip_blank_lines=False, index_col=False, header=None, skiprows=1,
+                          names=padded, dtype={padded[i]: str for i in text_cols} or None)
     except (pd.errors.ParserError, ValueError) as exc:
         raise InputError(f"{p}: cannot read as CSV: {str(exc).splitlines()[0]}") from None
     keep = [j for j, n in enumerate(names) if n or used[j]]  # drop nameless empty columns (trailing separators)
