@@ -191,7 +191,7 @@ def _log_path(run_dirs: list[Path]) -> Path:
     """The run folder this invocation made (newest first), else the current folder."""
     for d in reversed(run_dirs):
         if d.is_dir():
-            return d / ERROR_LOG
+            return d.resolve() / ERROR_LOG
     return Path.cwd() / ERROR_LOG
 
 
