@@ -137,3 +137,15 @@ def test_bundle_path_that_is_a_file_is_refused(tmp_path):
     with pytest.raises(InputError, match="exists and is not a folder"):
         save_bundle(_closure(0), f)
     assert f.read_text() == "not a folder"
+
+
+def test_point_json_is_strict(capsys):
+    from closure_nn.cli import main
+
+    # a single stratified root: roots 2 and 3 are absent and must be null, not NaN (RFC 8259)
+    assert main(["point", "--vsl", "0.01", "--vsg", "1", "--D", "0.1", "--json"]) == 0
+    out = capsys.readouterr().out
+    def refuse(token):
+        raise ValueError(token)
+    data = json.loads(out, parse_constant=refuse)
+    assert data["root_3"] is None

@@ -2,7 +2,6 @@
 from __future__ import annotations
 
 import argparse
-import json
 import math
 
 from ..caution import CAUTION
@@ -59,7 +58,9 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
         res = solve_points(cond, closure, **dict(cfg.solver))
     cols = {k: (v[0].item() if hasattr(v[0], "item") else v[0]) for k, v in res.to_columns().items()}
     if args.json:
-        print(json.dumps({"closure": closure.label, **cols, "caution": CAUTION}, indent=2, default=str))
+        from ..run_folder import dumps_json
+
+        print(dumps_json({"closure": closure.label, **cols, "caution": CAUTION}))  # strict JSON: a missing root is null
         return 0
     roots = [f"{cols[f'root_{k}']:.4f}" for k in (1, 2, 3) if cols[f"root_{k}"] == cols[f"root_{k}"]]
     print(f"closure          {closure.label}")
