@@ -29,6 +29,7 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "batch": ("closure_nn.commands.batch", "solve every row of a conditions CSV, write a results CSV"),
     "check-data": ("closure_nn.commands.check_data", "validate a measurement table and convert it to SI"),
     "synth": ("closure_nn.commands.synth", "sample a design space and write a synthetic training table"),
+    "fit": ("closure_nn.commands.fit", "lab table -> validated closure bundle (pre-train, fine-tune, check, report)"),
     "train": ("closure_nn.commands.train", "pre-train, fine-tune or update a neural closure"),
     "evaluate": ("closure_nn.commands.evaluate", "compare baseline, learned closure and a black-box regressor on held-out rows"),
     "audit": ("closure_nn.commands.audit", "consistency audit of a dataset and a closure"),
