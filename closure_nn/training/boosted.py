@@ -159,7 +159,7 @@ def group_features(df: pd.DataFrame) -> tuple[np.ndarray, tuple[str, ...]]:
     :math:`1/\sqrt{\cos\theta}` (as ``Fr_G`` there), which would diverge for vertical pipes and
     moves log10 F by at most 0.02 below 35 deg, while sin(theta) is an input of its own; Fr_SL
     is the plain Froude number (as ``Fr_L`` there). X and Y bring what practitioners map flow
-    patterns and holdup on (TD76 Fig. 4: X for near-horizontal pipes, Y for the inclination);
+    patterns and holdup on (TD76's generalised map has X as abscissa; Y carries the inclination);
     the Reynolds numbers the friction regime; the density and viscosity ratios and Eo the fluid
     pair and pipe size; lambda_L the homogeneous limit. Logs have a floor of 1e-30.
 
