@@ -185,3 +185,29 @@ def test_fit_refuses_a_table_with_too_few_rows(tmp_path):
     lab = noisy_table(parse_design(loop_design([50.0])), 8, 0, BaselineClosure())
     with pytest.raises(InputError, match="need at least 10"):
         fit(load_config("fit", [f"run_root={tmp_path}"]), lab, say=_quiet)
+
+
+def test_settings_search_is_seeded_and_chooses_inside_the_declared_space(invented, tmp_path):
+    """Two runs of the same search (same table, seeds, trials) give the same trials, and the chosen
+    settings lie in the declared space; only the development rows score a trial."""
+    from omegaconf import OmegaConf
+
+    from closure_nn.pipeline.search import search_settings
+    from closure_nn.pipeline.stages import pretrain, synthesize_design
+    from closure_nn.pipeline.envelope import envelope_design
+    from closure_nn.pipeline.fit import validate_lab
+
+    cfg = load_config("fit", ["fit.synth.n=200", "stage_trainer.pretrain.max_epochs=1", "fit.search.trials=2"])
+    OmegaConf.set_struct(cfg, False)
+    cfg.fit.search.space = {"finetune.lr_factor": {"low": 0.3, "high": 2.0, "log": True},
+                            "trainer.max_epochs": {"choices": [2, 3]}}
+    lab = validate_lab(pd.read_csv(invented["lab"]).head(80))
+    pre = pretrain(cfg, synthesize_design(cfg, envelope_design(lab.rows), 200, 0).table, tmp_path / "pre")
+    runs = [search_settings(cfg, pre, lab.rows, tmp_path / f"search{i}", say=_quiet) for i in (0, 1)]
+    (c0, r0), (c1, r1) = runs
+    assert r0["chosen"] == r1["chosen"] and r0["best_gain"] == r1["best_gain"]
+    t0 = pd.read_csv(tmp_path / "search0" / "trials.csv")
+    t1 = pd.read_csv(tmp_path / "search1" / "trials.csv")
+    pd.testing.assert_frame_equal(t0.drop(columns="seconds"), t1.drop(columns="seconds"))
+    assert len(t0) == 2 and set(t0["trainer.max_epochs"]) <= {2, 3}
+    assert 0.3 <= c0.finetune.lr_factor <= 2.0 and c0.trainer.max_epochs in (2, 3)

@@ -263,4 +263,9 @@ def report_text(r: dict) -> str:
                  f"{c['fit_rows_baseline']} fit rows (baseline map), {c['baseline']} / {c['shipped']} development rows "
                  "(baseline / shipped map); their data term decides.")
     lines.append(f"How measured: {r['how_measured']}.")
+    if r.get("search"):
+        sr = r["search"]
+        lines.append(f"Settings search: {sr['trials']} trials ({sr['sampler']}), chosen "
+                     + ", ".join(f"{k}={v:.4g}" if isinstance(v, float) else f"{k}={v}" for k, v in sr["chosen"].items())
+                     + f"; {sr['caveat']}.")
     return "\n".join(lines)
