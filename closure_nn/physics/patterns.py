@@ -1,45 +1,72 @@
-r"""Flow-pattern classification of a batch of gas-liquid pipe-flow states.
+r"""Flow-pattern classification of a batch of gas-liquid pipe-flow states, -90 to +90 deg.
 
-Two published mechanistic maps, evaluated in dimensional form so that they use whatever
-closure produced the stratified equilibrium:
+Published mechanistic criteria, evaluated in dimensional form; those about a stratified layer
+use whatever closure produced the stratified equilibrium:
 
-* **Taitel & Dukler (1976)**, AIChE J. 22(1):47-55, doi:10.1002/aic.690220105 (TD76), for
-  horizontal, downward and mildly upward flow (theta < ``theta_steep``). Every criterion is
-  evaluated at the stratified equilibrium *of the closure* (``strat.state``: u_L, u_G, A_G,
-  S_i = dA_L/dh, h/D; ``strat.friction.f_wl``). With the TD76 Blasius closure and a smooth
-  interface this is the published map; a learned closure moves its boundaries through the
-  equilibrium it predicts. TD76 wrote the criteria with dimensionless groups (F, K, T against
-  X); the dimensional forms below are the same inequalities before non-dimensionalisation, with
-  g cos(theta) in every gravity term as TD76 do for near-horizontal pipes.
+* **Taitel & Dukler (1976)**, AIChE J. 22(1):47-55, doi:10.1002/aic.690220105 (TD76):
+  Kelvin-Helmholtz stability of the stratified layer (:func:`kh_gas_velocity`), smooth/wavy
+  (:func:`wavy_gas_velocity`), and, near horizontal, intermittent vs annular by the level
+  h/D = 0.5 and dispersed bubble by turbulence (:func:`td_dispersed_liquid_velocity`). Every
+  criterion is evaluated at the stratified equilibrium *of the closure* (``strat.state``: u_L,
+  u_G, A_G, S_i = dA_L/dh, h/D; ``strat.friction.f_wl``), with g cos(theta) in every gravity term
+  as TD76 do. With the TD76 Blasius closure and a smooth interface this is the published map.
+  Barnea, Shoham, Taitel & Dukler (1980), Int. J. Multiphase Flow 6:217-225, compared it with
+  air-water data in horizontal and inclined pipes up to +-10 deg and found it good (from memory).
 * **Taitel, Barnea & Dukler (1980)**, AIChE J. 26(3):345-354, doi:10.1002/aic.690260304
-  (TBD80), for steep upward flow (theta >= ``theta_steep``), with the sin(theta) factor of the
-  bubble rise velocity in the bubble-to-slug line as generalised by Barnea (1987),
-  Int. J. Multiphase Flow 13(1):1-12 (from memory). Churn flow counts as ``intermittent``.
+  (TBD80), vertical upflow, extended to inclined upflow by Barnea, Shoham, Taitel & Dukler
+  (1985), Chem. Eng. Sci. 40(1):131-136 with the sin(theta) factor of the bubble rise velocity in
+  the bubble-to-slug line (from memory). Churn flow counts as ``intermittent``.
+* **Barnea (1986, 1987)** and **Barnea, Shoham & Taitel (1982)** (BST82), downward flow and the
+  unified criteria: :mod:`closure_nn.physics.transitions_unified` (dispersed bubble at any
+  inclination, annular film stability and blockage, bubble migration, stratified to annular in
+  downward pipes).
 
-Decision tree (codes from :data:`closure_nn.physics.vocabulary.CODE`):
+Decision tree (codes from :data:`closure_nn.physics.vocabulary.CODE`; bands of theta, + upward):
 
 1. vsg <= 0 -> ``single_phase_liquid`` (also when both rates are zero); vsl <= 0 < vsg ->
    ``single_phase_gas``.
-2. theta >= theta_steep (default 20 deg, our choice), or no stratified equilibrium was found
-   (``strat.found`` False): TBD80 criteria only, which need no equilibrium --
+2. **Steep upflow**, theta >= ``theta_steep`` (20 deg, our choice; Barnea 1987 found stratified
+   upflow only at small angles, from memory): TBD80 criteria, which need no equilibrium --
    annular if :func:`tbd_annular_vsg` is reached; else dispersed bubble if u_M reaches
    :func:`tbd_dispersed_vm` and the no-slip void vsg/u_M < 0.52; else bubble if the pipe is
-   wide enough (:func:`tbd_bubble_min_diameter`), theta >= ``theta_bubble`` and the void
-   fraction is below 0.25 (:func:`tbd_bubble_slug_vsl`); else intermittent.
-   Choosing an angle threshold is ours: Barnea (1987) found stratified flow only at small
-   upward inclinations (from memory), and the TD76 criteria lose their meaning as
-   cos(theta) -> 0. Bubble flow needs steep pipes because bubbles otherwise migrate to the top
-   wall and coalesce (TBD80/Barnea 1987, qualitative, from memory); we require
-   theta >= 60 deg (our choice) instead of Barnea's migration criterion.
-3. Otherwise TD76: stratified if Kelvin-Helmholtz stable (:func:`kh_gas_velocity`), then
-   wavy or smooth by Jeffreys' sheltering (:func:`wavy_gas_velocity`); if unstable,
-   h/D >= 0.5 -> intermittent unless dispersed bubble (:func:`td_dispersed_liquid_velocity`),
-   h/D < 0.5 -> annular. Downward flow uses the same TD76 criteria with the inclination in the
-   equilibrium and cos(theta) in the gravity terms; TD76 intended them for small angles only.
+   wide enough (:func:`tbd_bubble_min_diameter`), bubbles do not migrate to the upper wall
+   (:func:`~closure_nn.physics.transitions_unified.bubble_migration_allowed`, Barnea 1987) and
+   the void fraction is below 0.25 (:func:`tbd_bubble_slug_vsl`); else intermittent.
+3. **Stratified**, any theta < ``theta_steep`` with a stratified equilibrium: Kelvin-Helmholtz
+   stable (TD76) -> stratified wavy or smooth; but in downward pipes (theta < 0) annular when the
+   layer is fast enough to throw drops onto the upper wall
+   (:func:`~closure_nn.physics.transitions_unified.bst_annular_liquid_velocity`, BST82), and
+   that annular film intermittent if it bridges the pipe or is unstable (Barnea 1986).
+4. **Near horizontal, not stratified**: ``theta_down`` (-10 deg, the steepest downward angle of
+   the TD76 comparison above) <= theta < ``theta_steep``: TD76 -- h/D >= 0.5 -> intermittent unless
+   dispersed bubble (TD76 turbulence criterion), h/D < 0.5 -> annular.
+5. **Steep downflow**, theta < ``theta_down``, and every state below ``theta_steep`` without a
+   stratified equilibrium: the unified criteria, which need no equilibrium -- dispersed bubble
+   by Barnea (1986) (bubble size against coalescence and migration; this also overrides a
+   Kelvin-Helmholtz-stable layer, since bubbles that turbulence keeps small and off the upper
+   wall cannot form one); else annular if the film of Barnea's film equation is thinner than
+   blockage (H_LF < 0.24) and stable; else intermittent. At -90 deg the Kelvin-Helmholtz limit is
+   zero (cos theta = 0), so vertical downflow is annular (falling film), intermittent or
+   dispersed bubble, as BST82 observed.
 
-Validity: TD76 near-horizontal pipes, Newtonian fluids, the mechanistic assumptions of the
-paper (long-wave inviscid Kelvin-Helmholtz, sheltering coefficient s = 0.01); TBD80 vertical
-upward air-water-like systems, D ~ 2.5-5 cm in their data (from memory).
+Interface law and the pattern decision. The Kelvin-Helmholtz limit, the smooth/wavy line, the
+TD76 level and turbulence criteria and the BST82 layer velocity are all evaluated at the
+closure's own stratified equilibrium, so the interfacial factor decides where stratified flow
+ends: a rougher interface drags the liquid faster, the layer thins and stays stable to higher gas
+rates (Andritsos & Hanratty 1987 make the same point). A learned closure therefore moves these
+boundaries, and pattern observations can train it (``closure_nn.training.loss``, term
+``pattern``). The baseline closure's default interface is Andritsos & Hanratty (1987), chosen for
+its holdup and pressure gradient in wavy stratified flow; TD76 built their map with a smooth
+interface (f_i = f_G), so the baseline's Kelvin-Helmholtz line sits at somewhat higher gas rates
+than the published map. We keep one closure for holdup, pressure gradient and pattern, so the
+pattern is consistent with the equilibrium the solver reports; ``BaselineClosure(interface=
+'smooth')`` reproduces the TD76 map. The unified criteria of steps 2 and 5 use fixed published
+friction laws and do not move with the closure.
+
+Validity: TD76 near-horizontal pipes, Newtonian fluids, long-wave inviscid Kelvin-Helmholtz,
+sheltering coefficient s = 0.01; TBD80 vertical upward air-water-like systems, D ~ 2.5-5 cm
+(from memory); Barnea (1986, 1987) and BST82 air-water, D ~ 2.5-5 cm, the whole range of
+inclinations (from memory).
 """
 from __future__ import annotations
 
@@ -51,6 +78,10 @@ from .conditions import Conditions
 from .geometry import STRATIFIED
 from .holdup_roots import SeparatedSolution
 from .local_state import LocalState
+from .transitions_unified import (
+    barnea_annular_ok, barnea_dispersed, bst_annular_liquid_velocity, bubble_migration_allowed,
+    unified_codes_without_equilibrium,
+)
 from .vocabulary import (
     ANNULAR, BUBBLE, CODE, DISPERSED_BUBBLE, INTERMITTENT, SINGLE_PHASE_GAS, SINGLE_PHASE_LIQUID,
     STRATIFIED_SMOOTH, STRATIFIED_WAVY,
@@ -58,8 +89,8 @@ from .vocabulary import (
 
 #: inclination [rad] from which upward flow is classified by TBD80 (our choice, see module doc)
 THETA_STEEP = math.radians(20.0)
-#: smallest inclination [rad] at which the bubble pattern is allowed (our choice)
-THETA_BUBBLE = math.radians(60.0)
+#: steepest downward inclination [rad] still classified by TD76 when not stratified (module doc)
+THETA_DOWN = math.radians(-10.0)
 #: Jeffreys sheltering coefficient used by TD76 for the smooth/wavy transition [-]
 S_WAVE_TD76 = 0.01
 _TINY = 1e-300
@@ -219,36 +250,48 @@ def tbd_annular_vsg(cond: Conditions) -> torch.Tensor:
     return 3.1 * (cond.sigma * cond.g * drho) ** 0.25 / torch.sqrt(cond.rhog)
 
 
-def _tbd_codes(cond: Conditions, theta_bubble: float) -> torch.Tensor:
-    """TBD80 upward-flow pattern codes (no equilibrium needed); see module docstring."""
+def _tbd_codes(cond: Conditions, theta_bubble: float | None) -> torch.Tensor:
+    """TBD80 upward-flow pattern codes (no equilibrium needed); module docstring, step 2."""
     vm = cond.vm
     void_ns = cond.vsg / vm.clamp_min(_TINY)  # no-slip void fraction
     annular = cond.vsg >= tbd_annular_vsg(cond)
     dispersed = (vm >= tbd_dispersed_vm(cond)) & (void_ns < 0.52)
-    bubble = ((cond.D > tbd_bubble_min_diameter(cond)) & (cond.theta >= theta_bubble)
-              & (cond.vsl >= tbd_bubble_slug_vsl(cond)))
+    no_wall = bubble_migration_allowed(cond) if theta_bubble is None else cond.theta >= theta_bubble
+    bubble = (cond.D > tbd_bubble_min_diameter(cond)) & no_wall & (cond.vsl >= tbd_bubble_slug_vsl(cond))
     code = torch.full(cond.shape, CODE[INTERMITTENT], dtype=torch.int64)
     code = torch.where(bubble, CODE[BUBBLE], code)
     code = torch.where(dispersed, CODE[DISPERSED_BUBBLE], code)
     return torch.where(annular, CODE[ANNULAR], code)
 
 
-def _td_codes(cond: Conditions, strat: SeparatedSolution, s_wave: float) -> torch.Tensor:
-    """TD76 codes at the closure's stratified equilibrium; see module docstring."""
+def _stratified_codes(cond: Conditions, strat: SeparatedSolution, s_wave: float) -> tuple[torch.Tensor, torch.Tensor]:
+    """(stable, code) at the closure's stratified equilibrium: KH-stable layers are stratified
+    smooth/wavy (TD76), or annular in downward pipes by BST82 (intermittent if that film is
+    blocked or unstable, Barnea 1986); module docstring, step 3."""
     s = strat.state
-    stable = s.u_G < kh_gas_velocity(cond, s)
+    stable = strat.found & (s.u_G < kh_gas_velocity(cond, s))
     wavy = s.u_G >= wavy_gas_velocity(cond, s, s_wave)
+    code = torch.where(wavy, CODE[STRATIFIED_WAVY], CODE[STRATIFIED_SMOOTH])
+    thrown = (cond.theta < 0) & (s.u_L >= bst_annular_liquid_velocity(cond, s, strat.friction.f_wl))
+    if bool((stable & thrown).any()):
+        film = torch.where(barnea_annular_ok(cond), CODE[ANNULAR], CODE[INTERMITTENT])
+        code = torch.where(thrown, film, code)
+    return stable, code
+
+
+def _td_nonstratified_codes(cond: Conditions, strat: SeparatedSolution) -> torch.Tensor:
+    """TD76 codes of a Kelvin-Helmholtz-unstable layer near horizontal; module docstring, step 4."""
+    s = strat.state
     dispersed = s.u_L >= td_dispersed_liquid_velocity(cond, s, strat.friction.f_wl)
     thick = s.geom.frac >= 0.5
-    non_strat = torch.where(thick, torch.where(dispersed, CODE[DISPERSED_BUBBLE], CODE[INTERMITTENT]),
-                            torch.full_like(cond.vsl, CODE[ANNULAR], dtype=torch.int64))
-    strat_code = torch.where(wavy, CODE[STRATIFIED_WAVY], CODE[STRATIFIED_SMOOTH])
-    return torch.where(stable, strat_code, non_strat)
+    return torch.where(thick, torch.where(dispersed, CODE[DISPERSED_BUBBLE], CODE[INTERMITTENT]),
+                       torch.full_like(cond.vsl, CODE[ANNULAR], dtype=torch.int64))
 
 
 def classify(
     cond: Conditions, strat: SeparatedSolution, s_wave: float = S_WAVE_TD76,
-    theta_steep: float = THETA_STEEP, theta_bubble: float = THETA_BUBBLE,
+    theta_steep: float = THETA_STEEP, theta_bubble: float | None = None,
+    theta_down: float = THETA_DOWN,
 ) -> torch.Tensor:
     """Flow-pattern code (int64, shape ``(B,)``) of every state; codes of ``vocabulary.CODE``.
 
@@ -258,12 +301,18 @@ def classify(
     strat : SeparatedSolution
         The stratified (``kind='stratified'``) equilibrium of the closure for ``cond``, from
         :func:`closure_nn.physics.holdup_roots.solve_separated`. Where ``strat.found`` is False
-        only the equilibrium-free TBD80 criteria are used (module docstring, step 2).
+        only the equilibrium-free criteria are used (module docstring, steps 2 and 5).
     s_wave : float
         Jeffreys sheltering coefficient [-] of the smooth/wavy transition (TD76: 0.01).
-    theta_steep, theta_bubble : float
-        Inclinations [rad] from which upward flow follows TBD80, and from which bubble flow is
-        allowed (defaults 20 and 60 deg, our choices).
+    theta_steep : float
+        Inclination [rad] from which upward flow follows TBD80 (default 20 deg, our choice).
+    theta_bubble : float or None
+        None (default): bubble flow where bubbles do not migrate to the upper wall (Barnea 1987,
+        :func:`~closure_nn.physics.transitions_unified.bubble_migration_allowed`); an angle [rad]:
+        the fixed threshold of earlier versions (60 deg), kept for comparisons.
+    theta_down : float
+        Steepest downward inclination [rad] at which a non-stratified state is classified by TD76
+        (default -10 deg); below it the unified criteria of Barnea (1986) decide.
 
     The decision tree, equations and sources are in the module docstring. No gradients flow
     through the (discrete) result.
@@ -276,6 +325,9 @@ def classify(
     >>> sol = solve_separated(c, BaselineClosure('taitel_dukler', 'smooth'))
     >>> [PATTERNS[int(k)] for k in classify(c, sol)]
     ['stratified_smooth', 'intermittent', 'annular', 'dispersed_bubble']
+    >>> c = make_conditions(vsl=[0.01, 1.5, 3.0], vsg=[5.0, 1.0, 0.3], D=0.05, theta=-math.pi / 2)
+    >>> [PATTERNS[int(k)] for k in classify(c, solve_separated(c, BaselineClosure()))]
+    ['annular', 'intermittent', 'dispersed_bubble']
     """
     if strat.state.kind != STRATIFIED:
         raise ValueError(
@@ -285,9 +337,20 @@ def classify(
         raise ValueError(f"conditions have batch shape {tuple(cond.shape)} but the separated "
                          f"solution has {tuple(strat.frac.shape)}")
     with torch.no_grad():
-        code = torch.where(strat.found, _td_codes(cond, strat, s_wave), CODE[INTERMITTENT])
-        use_tbd = (cond.theta >= theta_steep) | ~strat.found
-        code = torch.where(use_tbd, _tbd_codes(cond, theta_bubble), code)
+        steep_up = cond.theta >= theta_steep
+        near = strat.found & (cond.theta >= theta_down) & ~steep_up
+        unified = ~steep_up & ~near  # steep downflow, or no equilibrium below theta_steep
+        stable, strat_code = _stratified_codes(cond, strat, s_wave)
+        code = torch.full(cond.shape, CODE[INTERMITTENT], dtype=torch.int64)
+        if bool(near.any()):
+            code = torch.where(near, _td_nonstratified_codes(cond, strat), code)
+        if bool(unified.any()):
+            code = torch.where(unified, unified_codes_without_equilibrium(cond, CODE), code)
+        code = torch.where(stable & ~steep_up, strat_code, code)
+        if bool((unified & stable).any()):  # dispersed bubble overrides a stable layer (step 5)
+            code = torch.where(unified & barnea_dispersed(cond), CODE[DISPERSED_BUBBLE], code)
+        if bool(steep_up.any()):
+            code = torch.where(steep_up, _tbd_codes(cond, theta_bubble), code)
         code = torch.where((cond.vsl <= 0) & (cond.vsg > 0), CODE[SINGLE_PHASE_GAS], code)
         code = torch.where(cond.vsg <= 0, CODE[SINGLE_PHASE_LIQUID], code)
     return code.to(torch.int64)
