@@ -14,7 +14,8 @@ def load_config(name: str, overrides: list[str] | tuple[str, ...] = (), config_d
     ``config_dir``: a folder of the user's own configs (same layout as conf/: groups as
     sub-folders, e.g. ``DIR/design/my_loop.yaml``), searched BEFORE the package's, so a user adds
     or replaces a config without editing the installed tree. Returns an OmegaConf DictConfig.
-    Bad overrides become :class:`InputError`.
+    Bad overrides, unknown keys and values outside their allowed set or range
+    (:func:`closure_nn.config_checks.check_config`) become :class:`InputError`.
     """
     from hydra import compose, initialize_config_dir
     from hydra.errors import HydraException
@@ -28,11 +29,21 @@ def load_config(name: str, overrides: list[str] | tuple[str, ...] = (), config_d
         if not d.is_dir():
             raise InputError(f"config folder {config_dir} not found (expected a folder of config groups)")
         extra = [f"hydra.searchpath=[file://{d}]"]
-    try:
+
+    def _compose(over):
         with initialize_config_dir(config_dir=str(CONF_DIR), version_base=None):
-            return compose(config_name=name, overrides=[*extra, *overrides])
+            return compose(config_name=name, overrides=[*extra, *over])
+
+    try:
+        cfg = _compose(list(overrides))
     except (HydraException, OmegaConfBaseException) as exc:
-        raise InputError(f"config {name}: {str(exc).splitlines()[0]}") from None
+        from .config_checks import override_error  # nearest valid key, a group's choices
+
+        raise override_error(name, overrides, exc, config_dir, compose=_compose) from None
+    from .config_checks import check_config  # every value against its allowed set or range
+
+    check_config(cfg, name, config_dir=config_dir)
+    return cfg
 
 
 def require_complete(cfg, name: str) -> None:

@@ -78,6 +78,9 @@ CASES = [
     ("point-fluid-needs-p", POINT + ["--gas-fluid", "Methane"], 2, ["--gas-fluid needs --p"]),
     ("point-unknown-option", POINT + ["--bogus"], 2, ["unrecognized arguments: --bogus"]),
     ("point-unknown-override", POINT + ["nosuchkey=1"], 2, ["config point", "nosuchkey"]),
+    ("point-solver-rule", POINT + ["solver.select=bogus"], 2, ["solver.select = 'bogus'", "thinnest, thickest"]),
+    ("point-solver-grid", POINT + ["solver.n_grid=abc"], 2, ["solver.n_grid = 'abc'", "whole number >= 4"]),
+    ("point-bundle-no-path", POINT + ["closure.kind=bundle"], 2, ["closure.path", "closure.kind = 'bundle'"]),
     ("point-bundle-missing", POINT + ["closure=learned", "closure.path=no_bundle"], 2, ["no_bundle", "no such closure bundle"]),
     # batch: a conditions table
     ("batch-missing", ["batch", "nofile.csv"], 2, ["nofile.csv: not found"]),
@@ -99,7 +102,8 @@ CASES = [
     ("batch-workbook", ["batch", "workbook.csv"], 2, ["workbook.csv", "zip archive", "export the sheet as CSV"]),
     ("batch-broken-parquet", ["batch", "broken.parquet"], 2, ["broken.parquet: cannot read as Parquet"]),
     ("batch-bad-utf16", ["batch", "bad_utf16.csv"], 2, ["bad_utf16.csv", "UTF-16"]),
-    ("batch-out-folder-missing", ["batch", "good.csv", "--out", "nodir/results.csv"], 2, ["--out nodir/results.csv", "does not exist"]),
+    ("batch-output-folder-missing", ["batch", "good.csv", "--output", "nodir/results.csv"], 2, ["--output nodir/results.csv", "does not exist"]),
+    ("batch-out-file-folder-missing", ["batch", "good.csv", "--out", "nodir/results.csv"], 2, ["--out nodir/results.csv", "does not exist"]),
     # check-data: a training table
     ("check-missing", ["check-data", "nofile.csv"], 2, ["nofile.csv: not found"]),
     ("check-folder", ["check-data", "folder.csv"], 2, ["folder.csv: is a folder"]),
@@ -107,8 +111,8 @@ CASES = [
     ("check-header-only", ["check-data", "header_only.csv"], 2, ["header_only.csv", "no data rows"]),
     ("check-dup-header", ["check-data", "dup_header.csv"], 2, ["dup_header.csv, line 1", "'vsl' twice"]),
     ("check-extra-values", ["check-data", "extra_values.csv"], 2, ["data row 2 (file line 3)"]),
-    ("check-unknown-columns", ["check-data", "good.csv", "unknown_columns=x"], 2, ["unknown_columns must be 'keep' or 'drop'"]),
-    ("check-table-format", ["check-data", "good.csv", "table_format=xls"], 2, ["table_format must be 'csv' or 'parquet'"]),
+    ("check-unknown-columns", ["check-data", "good.csv", "unknown_columns=x"], 2, ["config check_data: unknown_columns = 'x'", "expected one of keep, drop"]),
+    ("check-table-format", ["check-data", "good.csv", "table_format=xls"], 2, ["config check_data: table_format = 'xls'", "expected one of csv, parquet"]),
     ("check-missing-column", ["check-data", "no_vsg.csv"], 2, ["no_vsg.csv: missing required column(s) 'vsg'"]),
     # audit
     ("audit-missing", ["audit", "nofile.csv", "--no-health"], 2, ["nofile.csv: not found"]),
@@ -117,12 +121,15 @@ CASES = [
     ("audit-bad-yaml", ["audit", "good.csv", "--closure-config", "bad.yaml"], 2, ["bad.yaml, line 2", "not valid YAML"]),
     ("audit-config-missing", ["audit", "good.csv", "--closure-config", "nope.yaml"], 2, ["nope.yaml: no such file"]),
     ("audit-config-bundle", ["audit", "good.csv", "--closure-config", "closure.yaml"], 2, ["no_such_bundle"]),
+    ("audit-closure-missing", ["audit", "good.csv", "--closure", "no_bundle"], 2, ["no_bundle: no such closure bundle"]),
+    ("audit-closure-not-a-closure", ["audit", "good.csv", "--closure", "folder.csv"], 2, ["folder.csv: not a closure"]),
     ("audit-truth-missing", ["audit", "good.csv", "--truth", "nofile.csv", "--no-health"], 2, ["nofile.csv: not found"]),
     ("audit-truth-binary", ["audit", "good.csv", "--truth", "binary.csv", "--no-health"], 2, ["binary.csv", "corruption list lacks column(s)"]),
     # map
     ("map-data-missing", ["map", "--data", "nofile.csv"], 2, ["nofile.csv: not found"]),
     ("map-data-dup-header", ["map", "--data", "dup_header.csv"], 2, ["dup_header.csv, line 1", "twice"]),
     ("map-learned-missing", ["map", "--learned", "no_bundle"], 2, ["no_bundle: no such closure bundle"]),
+    ("map-closure-missing", ["map", "--closure", "no_bundle"], 2, ["no_bundle: no such closure bundle"]),
     ("map-n-negative", ["map", "n=-3"], 2, ["config map: n = -3", "whole number >= 2"]),
     ("map-D-text", ["map", "D=abc"], 2, ["config map: D = 'abc'", "expected a number"]),
     ("map-axis-reversed", ["map", "vsl=[10,1]"], 2, ["config map: vsl", "0 < low < high"]),
@@ -132,12 +139,16 @@ CASES = [
     ("line-bad-yaml", ["line", "bad.yaml"], 2, ["bad.yaml, line 2", "not valid YAML"]),
     ("line-folder", ["line", "folder.yaml"], 2, ["folder.yaml", "is a folder"]),
     ("line-closure-missing", ["line", "--closure", "no_bundle"], 2, ["no_bundle: no such closure bundle"]),
+    ("line-ensemble-missing", ["line", "--ensemble", "no_bundle"], 2, ["no_bundle: no such closure bundle"]),
+    ("point-closure-learned-no-path", POINT + ["closure=learned"], 2, ["closure=learned needs closure.path=PATH",
+                                                                       "--closure PATH"]),
+    ("point-closure-missing", POINT + ["--closure", "no_bundle"], 2, ["no_bundle: no such closure bundle"]),
     ("line-profile-missing", ["line", "no_profile.yaml"], 2, ["missing_profile.csv"]),
     ("line-bad-override", ["line", "march.bogus=1"], 2, ["march.bogus"]),
     # synth
-    ("synth-n-zero", ["synth", "n=0"], 2, ["n = 0; expected a whole number >= 1"]),
+    ("synth-n-zero", ["synth", "n=0"], 2, ["config synth: n = 0", "expected a whole number >= 1"]),
     ("synth-no-design", ["synth", "design=nope"], 2, ["design/nope"]),
-    ("synth-format", ["synth", "table_format=xlsx"], 2, ["table_format must be 'csv' or 'parquet'"]),
+    ("synth-format", ["synth", "table_format=xlsx"], 2, ["config synth: table_format = 'xlsx'", "expected one of csv, parquet"]),
     ("synth-seed", ["synth", "seed=1.5"], 2, ["seed = 1.5"]),
     # train: every case fails before training starts
     ("train-no-table", ["train"], 2, ["a value is required for data.train"]),
@@ -150,17 +161,6 @@ CASES = [
     # the command line itself
     ("unknown-command", ["frobnicate"], 2, ["unknown command 'frobnicate'"]),
 ]
-
-#: cases that show a fault this change leaves to the owner of the code (each fails today)
-XFAIL = {
-    "point-solver-rule": (POINT + ["solver.select=bogus"], 2, ["solver", "bogus"],
-                          "solver settings are not checked before solving: holdup_roots raises a plain ValueError "
-                          "for an unknown root rule (config checks belong to the configs' owner)"),
-    "point-solver-grid": (POINT + ["solver.n_grid=abc"], 2, ["n_grid"],
-                          "solver.n_grid is not checked: a text value reaches torch as an internal TypeError"),
-    "point-bundle-no-path": (POINT + ["closure.kind=bundle"], 2, ["closure", "path"],
-                             "closure.kind=bundle without a path reaches the registry as an OmegaConf ConfigKeyError"),
-}
 
 
 def _assert_refused(capsys, work: Path, argv, code, fragments):
@@ -181,12 +181,6 @@ def _assert_refused(capsys, work: Path, argv, code, fragments):
 
 @pytest.mark.parametrize("argv,code,fragments", [c[1:] for c in CASES], ids=[c[0] for c in CASES])
 def test_refused_with_one_line(work, capsys, argv, code, fragments):
-    _assert_refused(capsys, work, argv, code, fragments)
-
-
-@pytest.mark.parametrize("argv,code,fragments", [pytest.param(*v[:3], marks=pytest.mark.xfail(strict=True, reason=v[3]))
-                                                 for v in XFAIL.values()], ids=list(XFAIL))
-def test_known_faults_left_to_their_owner(work, capsys, argv, code, fragments):
     _assert_refused(capsys, work, argv, code, fragments)
 
 

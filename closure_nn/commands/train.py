@@ -29,8 +29,16 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def _config(overrides: list[str]):
-    """Compose conf/train.yaml; with ``resume=<ckpt>`` start from that run's saved config."""
+    """Compose conf/train.yaml; with ``resume=<ckpt>`` start from that run's saved config.
+
+    A resume continues the SAME run: an override that changes the saved config is refused in one
+    line naming the changed keys, except the keys of
+    :data:`closure_nn.config_checks.RESUME_SAFE` (more epochs, progress bar, threads). The saved
+    config.yaml is not rewritten (closure_nn.training.run.run_stage).
+    """
     from omegaconf import OmegaConf
+
+    from ..config_checks import RESUME_SAFE, changed_keys, check_config, check_keys, flat_keys, show
 
     resume = [o.split("=", 1)[1] for o in overrides if o.startswith("resume=")]
     if not resume:
@@ -39,10 +47,19 @@ def _config(overrides: list[str]):
     if not saved.exists():
         raise InputError(f"resume: {saved} not found (expected <run folder>/checkpoints/<file>.ckpt)")
     cfg = OmegaConf.load(saved)
+    before = OmegaConf.to_container(cfg, resolve=True)
+    check_keys([o.lstrip("+~").split("=", 1)[0] for o in overrides], flat_keys(before), f"resume: {saved}")
     try:
         cfg.merge_with_dotlist(list(overrides))
     except Exception as exc:  # OmegaConf raises several types for a bad dotlist
         raise InputError(f"config train: {str(exc).splitlines()[0]}") from None
+    changed = changed_keys(before, OmegaConf.to_container(cfg, resolve=True))
+    if changed:
+        what = ", ".join(f"{k} ({show(a)} -> {show(b)})" for k, a, b in changed)
+        raise InputError(f"resume: the overrides change the saved config of the run ({saved}): {what}; a resume "
+                         f"continues the same run, only {', '.join(RESUME_SAFE)} may change (start a new run "
+                         "for other settings)")
+    check_config(cfg, "train")
     return cfg
 
 

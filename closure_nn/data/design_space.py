@@ -68,6 +68,9 @@ VARIABLES: tuple[str, ...] = ("vsl", "vsg", "D", "theta", "roughness", "rhol", "
 #: properties a named fluid pair may set
 FLUID_PROPERTIES: tuple[str, ...] = ("rhol", "rhog", "mul", "mug", "sigma", "M_g", "Z")
 LAWS = ("fixed", "uniform", "log_uniform", "choice", "mixture")
+#: top-level keys of a design YAML, and the keys of one law
+DESIGN_KEYS = ("name", "description", "variables", "fluid", "fluids")
+LAW_KEYS = ("law", "low", "high", "value", "values", "weights", "components", "unit")
 
 
 @dataclass(frozen=True)
@@ -188,6 +191,9 @@ def parse_law(spec: object, where: str, unit: str | None = None, dimension: str 
     (0.05, 0.1)
     """
     if isinstance(spec, Mapping):
+        from ..config_checks import check_keys  # e.g. 'unti: mm' would silently mean SI
+
+        check_keys(spec, LAW_KEYS, where)
         unit = spec.get("unit", unit)
         kind = spec.get("law", "fixed" if "value" in spec else None)
     elif isinstance(spec, (list, tuple)):
@@ -347,10 +353,11 @@ def parse_design(cfg: Mapping) -> DesignSpace:
         raise InputError(f"design {name}: value(s) required but not given (??? in the YAML): "
                          f"{', '.join(missing)}; give them as overrides, e.g. {missing[0]}=<value>")
     where = f"design {name}"
+    from ..config_checks import check_keys  # unknown names: the nearest valid one
+
+    check_keys(c, DESIGN_KEYS, where)
     variables = c.get("variables") or {}
-    unknown = [k for k in variables if k not in VARIABLES]
-    if unknown:
-        raise InputError(f"{where}: unknown variable(s) {', '.join(unknown)}; known: {', '.join(VARIABLES)}")
+    check_keys(variables, VARIABLES, f"{where}.variables", what="variable")
     laws = {k: parse_law(v, f"{where}.variables.{k}", dimension=COLUMN[k].dimension) for k, v in variables.items()}
     fluid: Law | None = None
     fluids: dict[str, dict[str, Law]] = {}
@@ -365,10 +372,7 @@ def parse_design(cfg: Mapping) -> DesignSpace:
                                  f"(defined: {', '.join(table) or 'none'})")
         for pair in fluid.values:
             props = table[pair] or {}
-            bad = [k for k in props if k not in FLUID_PROPERTIES]
-            if bad:
-                raise InputError(f"{where}.fluids.{pair}: unknown propert(y/ies) {', '.join(bad)}; "
-                                 f"a pair may set {', '.join(FLUID_PROPERTIES)}")
+            check_keys(props, FLUID_PROPERTIES, f"{where}.fluids.{pair}", what="property")
             fluids[pair] = {k: parse_law(v, f"{where}.fluids.{pair}.{k}", dimension=COLUMN[k].dimension)
                             for k, v in props.items()}
     pairs = list(fluids.values()) or [{}]

@@ -82,6 +82,11 @@ RATE_UNITS: dict[str, tuple[str, float]] = {
     "bbl/d": ("volume", _BBL / _DAY),
 }
 _NUM_UNIT = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*(.*?)\s*$")
+#: keys of a line YAML, and of its tables (sections.<name> takes D and roughness)
+LINE_KEYS = ("name", "invented", "description", "profile", "D", "roughness", "sections", "fluid", "temperature",
+             "rates", "pressure")
+LINE_TABLE_KEYS = {"fluid": ("rhol", "mul", "sigma", "M_g", "Z", "coolprop", "mug", "rhog"),
+                   "temperature": ("inlet", "outlet"), "rates": ("gas", "liquid"), "pressure": ("inlet", "outlet")}
 # extra ranges for line inputs (SI): name -> (lo, hi, unit)
 _RANGES = {"T": (150.0, 600.0, "K"), "p": (1.0e4, 1.0e8, "Pa"), "M_g": (0.002, 0.2, "kg/mol"), "Z": (0.2, 2.0, "-")}
 
@@ -323,6 +328,15 @@ def line_from_config(cfg: Mapping, base_dir: str | Path | None = None, where: st
 
     if isinstance(cfg, DictConfig):
         cfg = OmegaConf.to_container(cfg, resolve=True)
+    from ..config_checks import check_keys  # a misspelled key: the nearest valid name
+
+    check_keys(cfg, LINE_KEYS, where)
+    for table, known in LINE_TABLE_KEYS.items():
+        if isinstance(cfg.get(table), Mapping):
+            check_keys(cfg[table], known, f"{where}, {table}")
+    for sec, entry in (cfg.get("sections") or {}).items():
+        if isinstance(entry, Mapping):
+            check_keys(entry, ("D", "roughness"), f"{where}, sections.{sec}")
     if not cfg.get("profile"):
         raise InputError(f"{where}: 'profile' (path of the profile CSV) is missing")
     prof_path = _resolve(str(cfg["profile"]), Path(base_dir) if base_dir else None)

@@ -345,7 +345,8 @@ def run_stage(cfg: DictConfig, train_df: pd.DataFrame, val_df: pd.DataFrame | No
         run_dir = make_run_dir("train", root=cfg.run_root, name=cfg.run_name)
     run_dir = Path(run_dir)
     run_dir.mkdir(parents=True, exist_ok=True)
-    OmegaConf.save(cfg, run_dir / "config.yaml", resolve=True)
+    if not (cfg.resume and (run_dir / "config.yaml").exists()):  # a resume keeps the run's saved config
+        OmegaConf.save(cfg, run_dir / "config.yaml", resolve=True)
     train_path = cfg.data.get("train") or train_df.attrs.get("path", "in-memory table")
     if val_df is None:
         train_df, val_df = split_table(train_df, float(cfg.data.val_fraction), int(cfg.seed))
