@@ -22,6 +22,7 @@ from closure_nn import load_closure, solve
 from closure_nn.cli import main
 from closure_nn.closures.baseline import BaselineClosure
 from closure_nn.closures.bundle import save_bundle
+from closure_nn.data.result_tables import bare_names
 from closure_nn.closures.ensemble import ClosureEnsemble, save_ensemble
 from closure_nn.closures.neural import NeuralClosure
 from closure_nn.data.features import FeatureScaler
@@ -76,9 +77,10 @@ def test_solve_agrees_with_solve_points_called_directly():
 def test_solve_gives_the_columns_closure_nn_batch_writes(tmp_path):
     df = table().reset_index(drop=True)
     df.to_csv(tmp_path / "rows.csv", index=False)
-    assert main(["batch", str(tmp_path / "rows.csv"), "--out", str(tmp_path / "res.csv"),
-                 "closure.wall=churchill", f"run_root={tmp_path / 'runs'}"]) == 0
+    assert main(["batch", str(tmp_path / "rows.csv"), "--output", str(tmp_path / "res.csv"),
+                 "closure.wall=churchill", f"--out={tmp_path / 'runs'}"]) == 0
     batch = pd.read_csv(tmp_path / "res.csv", keep_default_na=False, na_values=[""])
+    batch.columns = bare_names(batch.columns)  # the file's headers carry units: 'calc_pgrad [Pa/m]'
     out = solve(df)
     assert list(out.columns) == list(batch.columns)
     for col in ("calc_holdup", "calc_pgrad", "calc_pgrad_friction", "calc_n_roots", "calc_flags"):

@@ -119,7 +119,9 @@ def test_side_by_side_ensemble_and_domain_flags(line_dir):
     assert {"stations", "band", "summary", "plot", "config"} <= set(files)
     assert files["plot"].stat().st_size > 10_000
     assert json.loads(files["summary"].read_text())["caution"] == CAUTION
-    assert files["stations"].read_text().startswith("# " + CAUTION)
+    # plain tables (the caution is in summary.json and CAUTION.txt, not above the header)
+    assert files["stations"].read_text().startswith("closure,role,station,")
+    assert (line_dir / "CAUTION.txt").read_text().strip() == CAUTION
 
 
 def test_line_and_point_commands_do_not_import_lightning(line_dir):

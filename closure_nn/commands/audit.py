@@ -13,29 +13,37 @@ from pathlib import Path
 from ..caution import CAUTION
 from ..config import load_config
 from ..physics.checks import InputError
+from .options import CLOSURE_HELP, add_closure_option, add_out_option, chosen_closure, deprecated
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("data", nargs="?", default=None, help="measurement table (.csv or .parquet; units in headers allowed)")
-    p.add_argument("--closure-config", default=None,
-                   help="YAML file with a closure config (kind: baseline ... or kind: bundle, path: ...); "
-                        "replaces the closure group")
+    add_closure_option(p, help="the closure audited: " + CLOSURE_HELP + " (default: baseline)")
+    p.add_argument("--closure-config", default=None, help=argparse.SUPPRESS)  # old spelling of --closure
     p.add_argument("--truth", default=None, help="corruption list CSV (run_id, kind, description)")
     p.add_argument("--self-check", action="store_true",
                    help="audit the invented corrupted campaign (closure_nn.audit.selfcheck) instead of DATA")
     p.add_argument("--no-health", action="store_true", help="skip the closure health grid")
-    p.add_argument("--out", default=None, help="run folder root (default: run_root of the config)")
+    add_out_option(p)
 
 
-def _closure_cfg(cfg, path: str | None):
+def _closure(args: argparse.Namespace, cfg, overrides: list[str]):
+    """``--closure``; the old ``--closure-config YAML`` (a closure config file) still works, with a note."""
     from omegaconf import OmegaConf
 
-    if path is None:
-        return cfg.closure
+    from ..closures.registry import build_closure
+
+    path = getattr(args, "closure_config", None)
+    if path is None or args.closure is not None:
+        return chosen_closure(args.closure, cfg, overrides)
     p = Path(path)
     if not p.exists():
         raise InputError(f"--closure-config {p}: no such file")
-    return OmegaConf.load(p)
+    ccfg = OmegaConf.load(p)
+    spec = "baseline" if ccfg.get("kind", "baseline") == "baseline" else ccfg.get("path", "PATH")
+    closure = build_closure(ccfg)
+    deprecated(f"--closure-config {path}", f"--closure {spec}")  # after loading: a failure stays one line
+    return closure
 
 
 def run(args: argparse.Namespace, overrides: list[str]) -> int:
@@ -45,7 +53,6 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     from ..audit.health import HealthGridSpec, audit_closure
     from ..audit.report import write_report
     from ..audit.scoring import read_truth, recall_by_kind, score_against
-    from ..closures.registry import build_closure
     from ..data.table_io import read_table
     from ..data.validate import validate_table
     from ..run_folder import make_run_dir, write_json
@@ -56,7 +63,7 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
         spec = HealthGridSpec.from_mapping(OmegaConf.to_container(cfg.grid, resolve=True))
     except ValueError as exc:
         raise InputError(f"config audit: {exc}") from None
-    closure = build_closure(_closure_cfg(cfg, args.closure_config))
+    closure = _closure(args, cfg, overrides)
     notes, truth, rejected = [], None, None
     if args.self_check:
         from ..audit.selfcheck import corrupted_campaign

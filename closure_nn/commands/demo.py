@@ -26,7 +26,9 @@ from ..config import load_config
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--runs", default=None, help="folder for the run folder (default: run_root of conf/demo.yaml, ./runs)")
+    p.add_argument("--out", "--runs", dest="out", default=None, metavar="DIR",
+                   help="parent folder of the run folder (default: run_root of conf/demo.yaml, ./runs); "
+                        "--runs is the old spelling")
 
 
 def _only_subdir(root: Path) -> Path:
@@ -42,7 +44,6 @@ def _stage(title: str) -> float:
 def run(args: argparse.Namespace, overrides: list[str]) -> int:
     import json
 
-    import yaml
     from omegaconf import OmegaConf
 
     from ..closures.ensemble import combine_ensembles
@@ -55,7 +56,7 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
 
     cfg = load_config("demo", overrides)
     ecfg = load_config("evaluate", list(cfg.evaluate))
-    run_dir = make_run_dir("demo", args.runs or cfg.run_root)
+    run_dir = make_run_dir("demo", args.out or cfg.run_root)
     (run_dir / "config.yaml").write_text(OmegaConf.to_yaml(cfg))
     print(f"closure-nn demo on invented data; run folder: {run_dir}")
     seconds: dict[str, float] = {}
@@ -90,12 +91,10 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
 
     # 3. consistency audit of the lab campaign against the learned closure
     t0 = _stage("3/4 consistency audit of the lab campaign (learned closure)")
-    ccfg = run_dir / "learned_closure.yaml"
-    ccfg.write_text(yaml.safe_dump({"kind": "bundle", "path": str(learned_bundle)}))
     (run_dir / "audit").mkdir()
     audit_cmd.run(argparse.Namespace(data=str(ecfg.lab if Path(ecfg.lab).is_absolute() else _repo(ecfg.lab)),
-                                     closure_config=str(ccfg), truth=None, self_check=False, no_health=False,
-                                     out=str(run_dir / "audit")), list(cfg.audit))
+                                     closure=str(learned_bundle), closure_config=None, truth=None, self_check=False,
+                                     no_health=False, out=str(run_dir / "audit")), list(cfg.audit))
     audit_summary = json.loads((_only_subdir(run_dir / "audit") / "summary.json").read_text())
     seconds["audit"] = time.perf_counter() - t0
 
@@ -104,7 +103,7 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     (run_dir / "line").mkdir()
     # the learned line is the ensemble's mean closure (geometric mean of the members' factors), so
     # that the band brackets it; without an ensemble, the evaluated fine-tuned closure
-    line_cmd.run(argparse.Namespace(line_file=None, closure=[f"learned={members_dir or learned_bundle}"],
+    line_cmd.run(argparse.Namespace(line_file=None, closure=["baseline", f"learned={members_dir or learned_bundle}"],
                                     ensemble=[members_dir] if members_dir else [], no_plot=False,
                                     out=str(run_dir / "line")), list(cfg.line))
     line_dir = _only_subdir(run_dir / "line")
@@ -138,7 +137,7 @@ def _summary(ev: dict, audit: dict, line: dict, seconds: dict, run_dir: Path, li
     for split, s in ev["splits"].items():
         sc = s["scores"]["clean"]
         data["accuracy"][split] = {}
-        for model in ("baseline", "learned", "blackbox"):
+        for model in ("baseline", "learned", "blackbox", "boosted"):
             m = sc.get(model)
             if not m:
                 continue
@@ -149,6 +148,10 @@ def _summary(ev: dict, audit: dict, line: dict, seconds: dict, run_dir: Path, li
                          f"{'-' if pa is None or pa != pa else _pct(pa)} |")
         b, l_ = sc["baseline"]["holdup_mae"], sc["learned"]["holdup_mae"]
         lines.append(f"| {split} | learned vs baseline | {100 * (l_ / b - 1):+.0f} % | | |")
+        if "boosted" in sc:
+            g = sc["boosted"]["holdup_mae"]
+            lines.append(f"| {split} | learned vs boosted trees | {100 * (l_ / g - 1):+.0f} % | "
+                         f"{100 * (sc['learned']['pgrad_within_20'] - sc['boosted']['pgrad_within_20']):+.1f} points | |")
     a, s = audit["audit"], audit.get("score")
     lines += ["", "## Consistency audit of the lab campaign (against the learned closure)", "",
               f"- {a['rows']} rows audited, {a['suspect_rows']} suspect"]

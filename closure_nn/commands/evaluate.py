@@ -3,7 +3,7 @@
 Examples (key=value arguments are Hydra overrides of conf/evaluate.yaml)::
 
     closure-nn evaluate                                  # demo campaign; pre-trains first
-    closure-nn evaluate --bundle runs/train-.../bundle   # start every split from this pre-trained bundle
+    closure-nn evaluate --closure runs/train-...         # start every split from this pre-trained closure
     closure-nn evaluate kfold.k=0 splits.grouped.by=theta_band splits.grouped.test_groups=null
 
 Writes a run folder (``run_root``/evaluate-<time>): evaluation.json/.csv, predictions per split,
@@ -16,10 +16,15 @@ import math
 
 from ..caution import CAUTION
 from ..config import load_config, require_complete
+from ..physics.checks import InputError
+from .options import closure_path, deprecated
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--bundle", default=None, help="pre-trained closure bundle to fine-tune from (default: pre-train here)")
+    p.add_argument("--closure", default=None, metavar="PATH",
+                   help="the pre-trained closure every split is fine-tuned from: a bundle, an ensemble folder or a "
+                        "training run folder (default: pre-train here)")
+    p.add_argument("--bundle", default=None, help=argparse.SUPPRESS)  # old spelling of --closure
     p.add_argument("--lab", default=None, help="lab table (default: the experiment's, data_demo/lab_campaign.csv)")
     p.add_argument("--show-config", action="store_true", help="print the composed config and exit")
 
@@ -54,13 +59,22 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     from ..run_folder import make_run_dir
     from ..pipeline.evaluate import load_lab, repo_path, run_evaluation  # imports Lightning
 
-    if args.bundle and not repo_path(args.bundle).exists():
-        raise FileNotFoundError(2, "No such bundle", args.bundle)
+    spec = args.closure or args.bundle
+    if spec == "baseline":
+        raise InputError("evaluate --closure baseline: the fine-tune starts from a pre-trained neural closure; "
+                         "give its PATH, or leave --closure out to pre-train here")
+    start = None
+    if spec:
+        if not repo_path(spec).exists():
+            raise FileNotFoundError(2, "No such bundle", spec)
+        start = str(closure_path(repo_path(spec)))
+    if args.bundle and not args.closure:
+        deprecated(f"--bundle {args.bundle}", f"--closure {args.bundle}")
     lab = load_lab(args.lab or cfg.lab)
     run_dir = make_run_dir("evaluate", root=cfg.run_root, name=cfg.run_name)
     from ..report.training_plots import evaluation_figures
 
-    report = run_evaluation(cfg, lab, args.bundle, run_dir, figures=evaluation_figures)
+    report = run_evaluation(cfg, lab, start, run_dir, figures=evaluation_figures)
     report.pop("_kept", None)
     print("\n".join(summary_lines(report)))
     print(f"run folder: {run_dir} ({report['seconds']['total']:.0f} s)")

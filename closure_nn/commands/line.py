@@ -3,8 +3,12 @@
 Examples::
 
     closure-nn line                                   # the invented demo line, baseline closure
-    closure-nn line my_line.yaml --closure learned=runs/train-x/bundle --ensemble runs/ens-y
+    closure-nn line my_line.yaml --closure baseline --closure learned=runs/train-x --ensemble runs/ens-y
     closure-nn line line=karvel_ridge march.tol=20    # Hydra overrides of conf/line.yaml
+
+``--closure`` (repeatable) lists the closures marched side by side, in order; without it the
+config's closure (the baseline) and its ``compare`` entries. ``--ensemble DIR`` marches every
+member of an ensemble for the uncertainty band.
 """
 from __future__ import annotations
 
@@ -14,32 +18,42 @@ from pathlib import Path
 from ..caution import CAUTION
 from ..config import load_config
 from ..physics.checks import InputError
+from .options import CLOSURE_HELP, add_out_option, load_members
+from .options import load as load_closure_spec
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("line_file", nargs="?", default=None, metavar="LINE.yaml",
                    help="line definition (profile CSV + fluids, rates, one pressure); default: the config's line")
-    p.add_argument("--closure", action="append", default=[], metavar="[NAME=]SPEC",
-                   help="another closure side by side: a bundle or ensemble directory, or 'baseline' (repeatable)")
+    p.add_argument("--closure", action="append", default=[], metavar="[NAME=]baseline|PATH",
+                   help="a closure marched side by side, repeatable, in order: " + CLOSURE_HELP +
+                        "; NAME= names it in the tables (default: 'baseline' or the folder name). "
+                        "Default: the config's closure (the baseline)")
     p.add_argument("--ensemble", nargs="+", default=[], metavar="DIR",
-                   help="ensemble or bundle directories; every member is marched for the uncertainty band")
+                   help="an ensemble folder, a training run folder of an ensemble, a bundle, or a folder of bundle "
+                        "folders; every member is marched for the uncertainty band")
     p.add_argument("--no-plot", action="store_true", help="skip the PNG")
-    p.add_argument("--out", default=None, help="run folder root (default: run_root of the config)")
+    add_out_option(p)
 
 
 def _closure_from_spec(spec: str, cfg):
     from ..closures.registry import build_closure
 
+    if spec == "baseline" and cfg.closure.get("kind") == "baseline":
+        return build_closure(cfg.closure)  # closure.wall=... overrides apply
+    return load_closure_spec(spec)
+
+
+def _default_name(spec: str) -> str:
+    """'baseline', else the folder name (the run folder's name for ``<run>/bundle``)."""
+    p = Path(spec)
     if spec == "baseline":
-        return build_closure({"kind": "baseline"}) if cfg.closure.get("kind") != "baseline" else build_closure(cfg.closure)
-    return build_closure({"kind": "bundle", "path": spec})
+        return spec
+    return p.resolve().parent.name if p.name == "bundle" else (p.name or spec)
 
 
-def _members(path: str) -> list:
-    from ..closures.registry import build_closure
-
-    c = build_closure({"kind": "bundle", "path": path})
-    return list(c.members) if hasattr(c, "members") else [c]
+def _say(text: str) -> None:
+    print(text, flush=True)
 
 
 def run(args: argparse.Namespace, overrides: list[str]) -> int:
@@ -65,27 +79,31 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
         cfg.line = user
         base_dir = path.parent
     line = line_from_config(cfg.line, base_dir=base_dir, where=str(args.line_file or "conf line"))
-    closures = {str(cfg.closure.get("kind", "closure")) if cfg.closure.get("kind") == "baseline"
-                else Path(str(cfg.closure.path)).name: build_closure(cfg.closure)}
-    for name, ccfg in (cfg.get("compare") or {}).items():
-        closures[str(name)] = build_closure(ccfg)
+    closures = {}
+    if not args.closure:
+        closures[str(cfg.closure.get("kind", "closure")) if cfg.closure.get("kind") == "baseline"
+                 else _default_name(str(cfg.closure.path))] = build_closure(cfg.closure)
+        for name, ccfg in (cfg.get("compare") or {}).items():
+            closures[str(name)] = build_closure(ccfg)
     for item in args.closure:
         name, _, spec = item.rpartition("=")
-        name = name or Path(spec).name or spec
+        name = name or _default_name(spec)
         if name in closures:
-            raise InputError(f"--closure {item!r}: the name {name!r} is already used; write NAME=SPEC")
+            raise InputError(f"--closure {item!r}: the name {name!r} is already used; write NAME=PATH")
         closures[name] = _closure_from_spec(spec, cfg)
     members = []
     for d in list(cfg.get("ensemble") or []) + list(args.ensemble):
-        members += _members(str(d))
+        members += load_members(str(d))
     try:
         settings = MarchSettings(**OmegaConf.to_container(cfg.march))
     except TypeError as exc:
         raise InputError(f"march: {exc}") from None
     torch.set_num_threads(max(1, int(cfg.get("threads", 1))))
-    result = run_line(line, closures, members, solver=dict(cfg.solver), settings=settings)
+    result = run_line(line, closures, members, solver=dict(cfg.solver), settings=settings, say=_say)
     run_dir = make_run_dir("line", args.out or cfg.run_root)
-    files = write_line_run(result, run_dir, config_yaml=OmegaConf.to_yaml(cfg), plot=cfg.plot and not args.no_plot)
+    plot = cfg.plot and not args.no_plot
+    _say(f"writing stations.csv{', band.csv' if members else ''}, summary.json{' and line.png' if plot else ''}")
+    files = write_line_run(result, run_dir, config_yaml=OmegaConf.to_yaml(cfg), plot=plot)
     summ = result.summary()
     print(f"line {line.name}{' (invented)' if line.invented else ''}: {summ['length_m'] / 1e3:.2f} km, "
           f"{line.boundary} pressure {line.p_boundary / 1e5:.3f} bar given")

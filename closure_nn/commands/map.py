@@ -1,5 +1,6 @@
-"""``closure-nn map``: a flow-pattern map of the baseline (filled) and optionally a learned closure
-(dashed boundaries), with the rows of a measurement table drawn by their observed pattern.
+"""``closure-nn map``: a flow-pattern map of the baseline (filled) and optionally another closure
+(``--closure PATH``, dashed boundaries), with the rows of a measurement table drawn by their
+observed pattern.
 
 Writes ``pattern_map.png``, ``pattern_map.csv`` (grid codes as names), ``summary.json`` and the
 resolved config into a run folder.
@@ -11,12 +12,15 @@ import math
 
 from ..caution import CAUTION
 from ..config import load_config
+from .options import CLOSURE_HELP, add_closure_option, add_out_option, deprecated, load
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--data", default=None, help="measurement table to overlay (.csv or .parquet)")
-    p.add_argument("--learned", default=None, help="closure bundle drawn as dashed boundaries (same as learned=PATH)")
-    p.add_argument("--out", default=None, help="run folder root (default: run_root of the config)")
+    add_closure_option(p, help="the closure whose region boundaries are drawn dashed over the baseline's filled "
+                               "regions: " + CLOSURE_HELP + " (default: the baseline alone)")
+    p.add_argument("--learned", default=None, help=argparse.SUPPRESS)  # old spelling of --closure
+    add_out_option(p)
 
 
 def run(args: argparse.Namespace, overrides: list[str]) -> int:
@@ -25,6 +29,7 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     from omegaconf import OmegaConf
 
     from ..closures.registry import build_closure
+    from ..data.result_tables import write_result_csv
     from ..physics.vocabulary import PATTERNS
     from ..report.pattern_map import compute_pattern_map, disagreement, plot_pattern_map
     from ..run_folder import make_run_dir, write_json
@@ -39,9 +44,14 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
 
     check_conditions(make_conditions(vsl=list(cfg.vsl), vsg=list(cfg.vsg), D=kw["D"], theta=math.radians(kw["theta_deg"]),
                                      roughness=kw["roughness"], **fluids), where="map config")
-    base = compute_pattern_map(build_closure(cfg.closure), **kw)
-    learned_path = args.learned or cfg.learned
-    other = compute_pattern_map(build_closure({"kind": "bundle", "path": learned_path}), **kw) if learned_path else None
+    spec, old = args.closure, None
+    if spec is None and (args.learned or cfg.learned):  # the old spellings --learned PATH, learned=PATH
+        spec = str(args.learned or cfg.learned)
+        old = "--learned PATH" if args.learned else "learned=PATH"
+    base_closure = build_closure(cfg.closure)
+    other_closure = None if spec in (None, "baseline") else load(spec)
+    base = compute_pattern_map(base_closure, **kw)
+    other = compute_pattern_map(other_closure, **kw) if other_closure is not None else None
     data, note = None, ""
     if args.data:
         from ..data.table_io import read_table
@@ -61,7 +71,7 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
                          "pattern": [PATTERNS[int(c)] for c in base.codes.ravel()]})
     if other is not None:
         grid["pattern_learned"] = [PATTERNS[int(c)] for c in other.codes.ravel()]
-    grid.to_csv(run_dir / "pattern_map.csv", index=False)
+    write_result_csv(grid, run_dir / "pattern_map.csv")  # headers with units: vsl [m/s], vsg [m/s]
     summary = {"closure": base.label, "learned": other.label if other else None, **{k: v for k, v in kw.items() if k != "solver"},
                "share_disagreeing": disagreement(base, other) if other else None,
                "data_points": 0 if data is None else len(data), "caution": CAUTION}
@@ -72,6 +82,8 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     if note:
         print(note)
     print(CAUTION)
+    if old:  # once the run worked: a failure stays one line
+        deprecated(old, f"--closure {spec}")
     return 0
 
 

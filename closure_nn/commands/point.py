@@ -6,10 +6,10 @@ import math
 
 from ..caution import CAUTION
 from ..config import load_config
-from ..closures.registry import build_closure
 from ..physics.checks import check_conditions
 from ..physics.conditions import gas_density, make_conditions
 from ..physics.point import solve_points
+from .options import add_closure_option, chosen_closure
 
 AIR_MOLAR_MASS = 0.0289647  # kg/mol, dry air (e.g. Lemmon et al. 2000, J. Phys. Chem. Ref. Data 29:331)
 
@@ -31,6 +31,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--Z", type=float, default=1.0, help="gas compressibility factor [-] (default 1)")
     p.add_argument("--gas-fluid", default=None,
                    help="CoolProp fluid name for the gas (e.g. Methane, Nitrogen); sets rhog and mug from --p/--T")
+    add_closure_option(p)
     p.add_argument("--json", action="store_true", help="print the result as JSON")
 
 
@@ -53,7 +54,7 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
                            roughness=args.roughness, rhol=args.rhol, rhog=rhog, mul=args.mul, mug=mug,
                            sigma=args.sigma)
     check_conditions(cond, where="command line")
-    closure = build_closure(cfg.closure)
+    closure = chosen_closure(args.closure, cfg, overrides)
     with torch.no_grad():
         res = solve_points(cond, closure, **dict(cfg.solver))
     cols = {k: (v[0].item() if hasattr(v[0], "item") else v[0]) for k, v in res.to_columns().items()}

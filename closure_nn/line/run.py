@@ -18,7 +18,7 @@ the learned correction rests on synthetic baseline points only (or on nothing). 
 """
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -114,24 +114,38 @@ def _check_inputs(line: LineDefinition, local: LocalSolver) -> None:
 
 def run_line(line: LineDefinition, closures: Mapping[str, object], ensemble: Sequence[object] = (),
              solver: Mapping | None = None, settings: MarchSettings | None = None,
-             raise_errors: bool = False) -> LineRun:
+             raise_errors: bool = False, say: Callable[[str], None] | None = None) -> LineRun:
     """March ``line`` with every closure of ``closures`` ({name: closure}) and every member of
     ``ensemble``. A closure whose march fails is reported in ``failures`` (or raised when
-    ``raise_errors``)."""
+    ``raise_errors``). ``say``: called with one progress line per march (before it starts and
+    when it ends)."""
+    import time
+
     settings = settings or MarchSettings()
     gas = GasModel(line.fluid, (float(line.T.min()), float(line.T.max())))
     local = LocalSolver(line, gas, dict(solver or {}))
     _check_inputs(line, local)
     results, members, dom, failures, measured, recorded = {}, [], {}, {}, {}, {}
     jobs = [(name, c, False) for name, c in closures.items()] + [(f"member_{i}", c, True) for i, c in enumerate(ensemble)]
-    for name, closure, is_member in jobs:
+    mesh0 = Mesh.from_line(line)
+    for k, (name, closure, is_member) in enumerate(jobs):
+        t0 = time.perf_counter()
+        if say is not None:
+            what = "ensemble member" if is_member else "closure"
+            say(f"march {k + 1}/{len(jobs)}: {what} {name} over {mesh0.n} profile segments from the "
+                f"{line.boundary} pressure {line.p_boundary / 1e5:.2f} bar (step halving to {settings.tol:g} Pa) ...")
         try:
             r = Marcher(local, closure, settings, name).run(Mesh.from_line(line), line.p_boundary, line.boundary)
         except LineError as exc:
             if raise_errors:
                 raise
             failures[name] = str(exc)
+            if say is not None:
+                say(f"  {name}: failed after {time.perf_counter() - t0:.0f} s")
             continue
+        if say is not None:
+            say(f"  {name}: inlet {r.p[0] / 1e5:.2f} bar, outlet {r.p[-1] / 1e5:.2f} bar, {len(r.p)} stations "
+                f"({time.perf_counter() - t0:.1f} s)")
         (members.append(r) if is_member else results.__setitem__(name, r))
         mask = domain_mask(closure, r.features)
         if mask is not None:
@@ -145,29 +159,30 @@ def run_line(line: LineDefinition, closures: Mapping[str, object], ensemble: Seq
 
 
 def write_line_run(run: LineRun, run_dir: str | Path, config_yaml: str | None = None, plot: bool = True) -> dict[str, Path]:
-    """Write stations.csv, band.csv (if an ensemble ran), summary.json, line.png into ``run_dir``."""
-    from ..run_folder import write_json
+    """Write stations.csv, band.csv (if an ensemble ran), summary.json, line.png and CAUTION.txt
+    into ``run_dir``. The CSVs are plain tables with the SI unit in each header (``p [Pa]``)."""
+    from ..data.result_tables import write_result_csv
+    from ..run_folder import atomic_write_text, write_json
 
     d = Path(run_dir)
     files = {}
     st = run.stations()
-    files["stations"] = d / "stations.csv"
-    with open(files["stations"], "w") as fh:
-        fh.write(f"# {CAUTION}\n")
-        st.to_csv(fh, index=False)
+    # plain tables, SI with the unit in each header (closure_nn.data.result_tables); the caution is in
+    # summary.json and in the run folder's CAUTION.txt, not on a line of its own above the header
+    files["stations"] = write_result_csv(st, d / "stations.csv")
     band = run.band()
     if band is not None:
-        files["band"] = d / "band.csv"
-        with open(files["band"], "w") as fh:
-            fh.write(f"# {CAUTION}\n")
-            band.to_csv(fh, index=False)
+        files["band"] = write_result_csv(band, d / "band.csv")
     files["summary"] = write_json(d / "summary.json", run.summary())
+    if not (d / "CAUTION.txt").exists():
+        atomic_write_text(d / "CAUTION.txt", CAUTION + "\n")
     if config_yaml is not None:
         files["config"] = d / "config.yaml"
         files["config"].write_text(config_yaml)
     if plot and len(st):
         from ..report.line_plots import plot_line
 
-        title = run.line.name + (" (invented line)" if run.line.invented else "")
-        files["plot"] = plot_line(st, band, d / "line.png", title=title)
+        invented = run.line.invented and "invented" not in run.line.name.lower()
+        title = run.line.name + (" (invented line)" if invented else "")
+        files["plot"] = plot_line(st, band, d / "line.png", title=title, summary=run.summary())
     return files

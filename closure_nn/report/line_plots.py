@@ -54,9 +54,58 @@ def _runs(x: np.ndarray, labels: np.ndarray):
     return out
 
 
-def plot_line(stations, band=None, path: str | Path = "line.png", title: str = "line") -> Path:
+#: header of the key-number table under the line figure
+KEY_HEADER = ("closure", "inlet p\n[bar a]", "outlet p\n[bar a]", "pressure drop\n[bar]",
+              "of it friction / gravity\n[bar]", "liquid inventory\n[m3]")
+
+
+def key_numbers(summary: dict) -> list[tuple[str, ...]]:
+    """Rows of the key-number table from a line summary (:meth:`closure_nn.line.run.LineRun.summary`):
+    inlet and outlet pressure, pressure drop with its friction and gravity parts, and liquid
+    inventory per closure, then the ensemble's min-max.
+
+    >>> s = {"closures": {"baseline": {"p_inlet_Pa": 30e5, "p_outlet_Pa": 29.2e5, "dp_total_Pa": 0.8e5,
+    ...      "dp_friction_Pa": 0.5e5, "dp_gravity_Pa": 0.3e5, "liquid_inventory_m3": 12.34}}}
+    >>> key_numbers(s)
+    [('baseline', '30.00', '29.20', '0.800', '0.500 / 0.300', '12.3')]
+    """
+    out = []
+    for name, c in summary.get("closures", {}).items():
+        out.append((name, f"{c['p_inlet_Pa'] / 1e5:.2f}", f"{c['p_outlet_Pa'] / 1e5:.2f}", f"{c['dp_total_Pa'] / 1e5:.3f}",
+                    f"{c['dp_friction_Pa'] / 1e5:.3f} / {c['dp_gravity_Pa'] / 1e5:.3f}",
+                    f"{c['liquid_inventory_m3']:.1f}"))
+    e = summary.get("ensemble")
+    if e:
+        rng = lambda k, f=1e-5, fmt=".2f": f"{e[k]['min'] * f:{fmt}} - {e[k]['max'] * f:{fmt}}"  # noqa: E731
+        out.append((f"ensemble of {e['members']} (min - max)", rng("p_inlet_Pa"), rng("p_outlet_Pa"),
+                    rng("dp_total_Pa", fmt=".3f"), "", rng("liquid_inventory_m3", 1.0, ".1f")))
+    return out
+
+
+def _key_table(ax, rows: list[tuple[str, ...]], colours: list[str]) -> None:
+    """The key numbers as a plain table under the figure; each closure name in its line colour."""
+    ax.axis("off")
+    tab = ax.table(cellText=[list(r) for r in rows], colLabels=list(KEY_HEADER), cellLoc="right", colLoc="right",
+                   loc="upper center", edges="horizontal", colWidths=[0.26, 0.13, 0.13, 0.14, 0.19, 0.15])
+    tab.auto_set_font_size(False)
+    tab.set_fontsize(8.5)
+    tab.scale(1.0, 1.3)
+    for (r, c), cell in tab.get_celld().items():
+        cell.set_edgecolor("#bbbbbb")
+        if c == 0:
+            cell.set_text_props(ha="left")
+            cell._loc = "left"
+        if r == 0:
+            cell.set_text_props(weight="bold", color="#333333")
+            cell.set_height(cell.get_height() * 1.8)
+        elif c == 0 and r - 1 < len(colours):
+            cell.set_text_props(color=colours[r - 1], weight="bold")
+
+
+def plot_line(stations, band=None, path: str | Path = "line.png", title: str = "line", summary: dict | None = None) -> Path:
     """Draw the line figure from a station table (:func:`closure_nn.line.results.station_table`
-    rows of role 'compare') and an optional ensemble band table; returns the PNG path."""
+    rows of role 'compare') and an optional ensemble band table; returns the PNG path.
+    ``summary`` (the run's summary dict) adds the key-number table under the figure."""
     import matplotlib
 
     matplotlib.use("Agg")
@@ -66,8 +115,12 @@ def plot_line(stations, band=None, path: str | Path = "line.png", title: str = "
     comp = stations[stations["role"] == "compare"]
     names = list(dict.fromkeys(comp["closure"]))
     n_bands = max(len(names), 1)
-    fig = plt.figure(figsize=(11, 7.5 + 0.35 * n_bands))
-    gs = fig.add_gridspec(3, 1, height_ratios=[3.0, 2.2, 0.45 * n_bands + 0.3], hspace=0.12)
+    rows = key_numbers(summary) if summary else []
+    table_h = 0.27 * (len(rows) + 2) if rows else 0.0
+    fig = plt.figure(figsize=(11, 7.5 + 0.35 * n_bands + (table_h + 0.8 if rows else 0.0)))
+    # rows: pressure, holdup, pattern bands, (room for the axis label and the pattern key, key numbers)
+    ratios = [3.0, 2.2, 0.45 * n_bands + 0.3] + ([0.8, table_h] if rows else [])
+    gs = fig.add_gridspec(len(ratios), 1, height_ratios=ratios, hspace=0.12)
     ax_p, ax_h = fig.add_subplot(gs[0]), fig.add_subplot(gs[1])
     ax_b = fig.add_subplot(gs[2], sharex=ax_p)
     ax_h.sharex(ax_p)
@@ -129,8 +182,12 @@ def plot_line(stations, band=None, path: str | Path = "line.png", title: str = "
     for ax in (ax_p, ax_h):
         plt.setp(ax.get_xticklabels(), visible=False)
     ax_p.set_title(title, loc="left", fontsize=11)
+    if rows:
+        fig.add_subplot(gs[3]).axis("off")
+        _key_table(fig.add_subplot(gs[4]), rows, [LINE_COLOURS[k % len(LINE_COLOURS)] for k in range(len(names))])
     # below the pattern legend; bbox_inches="tight" keeps it in the picture
-    fig.text(0.01, -0.03, CAUTION, fontsize=6, color="#555555", wrap=True, va="top")
+    y_foot = fig.axes[-1].get_position().y0 - (0.0 if rows else 0.03)  # under the key numbers or the pattern key
+    fig.text(0.01, y_foot, CAUTION, fontsize=6, color="#555555", wrap=True, va="top")
     path = Path(path)
     fig.savefig(path, dpi=110, bbox_inches="tight")
     plt.close(fig)
