@@ -6,19 +6,32 @@ annular flow (frac_max = 1/2).
 
 Method
 ------
+The batch is solved in chunks of ``chunk`` states (memory bounded for any batch size); within
+a chunk:
+
 1. Bracket: evaluate F on a fixed grid of ``n_grid`` points (log-spaced near the wall, cosine-
-   clustered towards both ends) for all states at once; each sign change is a bracket. Two
-   roots closer than one grid cell are not resolved (documented limitation).
-2. Refine: Chandrupatla's (1997) hybrid of inverse quadratic interpolation and bisection,
-   vectorised over all brackets of all states, to ``xtol`` in frac.
-3. Select one root per state (``select``):
+   clustered towards both ends) for all states at once; each sign change is a bracket.
+2. Turns: a pair of roots closer than one grid cell shows no sign change, but F turns towards
+   zero there. Every interior grid point where F keeps its sign on both neighbours and
+   ``|F|`` is a local minimum is searched (golden-section search with parabolic steps, Brent
+   1973, ch. 5) on its two cells for the extremum of F. If F changes sign at the extremum, the
+   pair is bracketed on both sides of it; if the extremum stays within ``1e-9`` of the
+   neighbours' ``|F|`` of zero (a tangency: two roots may exist or not within rounding), or the
+   search does not settle, the state is marked ``unresolved``.
+   Not covered: a pair whose whole excursion (both turns of F) lies between two grid points
+   while F is monotone on the grid; the test on stored hard states bounds how often that
+   happens for random states.
+3. Refine: Chandrupatla's (1997) hybrid of inverse quadratic interpolation and bisection,
+   vectorised over all brackets of all states, to ``xtol`` in frac; only brackets not yet
+   converged are evaluated in each iteration.
+4. Select one root per state (``select``):
 
    * ``'thinnest'`` (default) - the smallest liquid level. In upward inclined flow with three
      roots, Barnea & Taitel (1992, Int. J. Multiphase Flow 18(6):847-857) found the thinnest-
      film solution to be the stable one; the middle root is always unstable.
    * ``'thickest'`` - the largest level.
 
-4. Attach implicit gradients (:mod:`closure_nn.physics.implicit`): the selected root carries
+5. Attach implicit gradients (:mod:`closure_nn.physics.implicit`): the selected root carries
    d frac / d p = -F_p / F_frac for every tensor p the closure and conditions depend on.
 
 No root (``found = False``) happens when the grid shows no sign change, e.g. a zero phase
@@ -27,6 +40,7 @@ placeholder (0.5 of frac_max) so downstream arithmetic stays finite; callers mus
 """
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 from typing import Callable
 
@@ -40,6 +54,13 @@ from .momentum import FrictionFactors, PressureGradient, Stresses, combined_resi
 
 SELECT_RULES = ("thinnest", "thickest")
 MAX_ROOTS = 3
+#: states per chunk of the root finder: large enough to amortise per-operation overhead, small
+#: enough that a chunk's (chunk, n_grid) temporaries stay in cache (benchmarks/README.md)
+DEFAULT_CHUNK = 4096
+_TURN_XTOL = 1e-11  # search tolerance in frac for the extremum of a turn
+_TURN_MAX_ITER = 80
+_TANGENT_RTOL = 1e-9  # extremum within this fraction of its neighbours' |F| of zero: unresolved
+_INV_PHI2 = (3 - math.sqrt(5)) / 2  # golden-section fraction 0.381966...
 
 
 @dataclass(frozen=True)
@@ -48,17 +69,28 @@ class SeparatedSolution:
 
     frac: torch.Tensor  # selected h/D or delta/D [-], differentiable
     roots: torch.Tensor  # (B, MAX_ROOTS) all roots ascending, NaN-padded beyond n_roots [-]
-    n_roots: torch.Tensor  # (B,) int64 number of sign changes found (may exceed MAX_ROOTS)
+    n_roots: torch.Tensor  # (B,) int64 number of roots found (may exceed MAX_ROOTS)
     found: torch.Tensor  # (B,) bool, a root exists
     state: LocalState  # at the selected root
     friction: FrictionFactors
     stresses: Stresses
     pgrad: PressureGradient  # -dp/dx [Pa/m]
+    unresolved: torch.Tensor | None = None  # (B,) bool, a root pair may hide at a tangency
 
     @property
     def holdup(self) -> torch.Tensor:
         """Liquid holdup H_L [-] at the selected root."""
         return self.state.holdup
+
+
+@dataclass(frozen=True)
+class RootSet:
+    """All roots of a batch ``(B,)``: ``roots`` (B, MAX_ROOTS) ascending NaN-padded [-],
+    ``n_roots`` (B,) int64, ``unresolved`` (B,) bool (a pair may hide at a tangency)."""
+
+    roots: torch.Tensor
+    n_roots: torch.Tensor
+    unresolved: torch.Tensor
 
 
 def frac_grid(kind: str, n_grid: int, dtype=torch.float64) -> torch.Tensor:
@@ -81,82 +113,197 @@ def residual_fn(cond: Conditions, closure: Callable, kind: str, entrainment) -> 
     return F
 
 
+def _subset_fn(cond: Conditions, E: torch.Tensor, closure: Callable, kind: str) -> Callable:
+    """F(idx, frac): the residual of states ``idx`` (LongTensor) of a flat batch at ``frac``."""
+
+    def F(idx: torch.Tensor, frac: torch.Tensor) -> torch.Tensor:
+        return residual_fn(cond[idx], closure, kind, E[idx])(frac)
+
+    return F
+
+
 def _chandrupatla(F: Callable, a: torch.Tensor, b: torch.Tensor, fa: torch.Tensor, fb: torch.Tensor,
                   xtol: float, max_iter: int) -> torch.Tensor:
     """Vectorised Chandrupatla (1997) bracketing root finder on [a, b] with fa * fb < 0.
 
-    Inverse quadratic interpolation where it is safe, bisection otherwise; the bracket always
-    holds the root. Source: Chandrupatla, T.R. (1997), Adv. Eng. Software 28(3):145-149.
-    States that converged are frozen; iteration stops when all brackets are below ``xtol``.
+    ``F(idx, x)`` evaluates the residual of brackets ``idx`` at ``x``. Inverse quadratic
+    interpolation where it is safe, bisection otherwise; the bracket always holds the root.
+    Source: Chandrupatla, T.R. (1997), Adv. Eng. Software 28(3):145-149. Only brackets not yet
+    below ``xtol`` are evaluated and updated in each iteration.
     """
     eps = torch.finfo(a.dtype).eps
     # Chandrupatla's naming: a = newest point, b = its bracket partner, c = previous point
-    b, fb, a, fa = a, fa, b, fb
-    c, fc = b, fb
+    b, fb, a, fa = a.clone(), fa.clone(), b.clone(), fb.clone()
+    c, fc = b.clone(), fb.clone()
     t = torch.full_like(a, 0.5)
-    done = torch.zeros_like(a, dtype=torch.bool)
     xm = torch.where(fa.abs() < fb.abs(), a, b)
+    act = torch.arange(a.numel())
     for _ in range(max_iter):
-        xt = a + t * (b - a)
-        ft = F(xt)
-        same = torch.signbit(ft) == torch.signbit(fa)
-        c_new = torch.where(same, a, b)
-        fc_new = torch.where(same, fa, fb)
-        b_new = torch.where(same, b, a)
-        fb_new = torch.where(same, fb, fa)
-        upd = ~done
-        a, fa = torch.where(upd, xt, a), torch.where(upd, ft, fa)
-        b, fb = torch.where(upd, b_new, b), torch.where(upd, fb_new, fb)
-        c, fc = torch.where(upd, c_new, c), torch.where(upd, fc_new, fc)
-        a_best = fa.abs() < fb.abs()
-        xm = torch.where(a_best, a, b)
-        fm = torch.where(a_best, fa, fb)
-        tol = 2 * eps * xm.abs() + xtol
-        width = (b - a).abs()
-        tlim = tol / width.clamp_min(1e-300)
-        done = done | (tlim > 0.5) | (fm == 0)
-        if bool(done.all()):
-            break
-        xi = (a - b) / (c - b)
-        phi = (fa - fb) / (fc - fb)
+        A, FA, Bb, FB, C, FC, T = a[act], fa[act], b[act], fb[act], c[act], fc[act], t[act]
+        xt = A + T * (Bb - A)
+        ft = F(act, xt)
+        same = torch.signbit(ft) == torch.signbit(FA)
+        C, FC = torch.where(same, A, Bb), torch.where(same, FA, FB)
+        Bb, FB = torch.where(same, Bb, A), torch.where(same, FB, FA)
+        A, FA = xt, ft
+        a_best = FA.abs() < FB.abs()
+        XM = torch.where(a_best, A, Bb)
+        FM = torch.where(a_best, FA, FB)
+        tol = 2 * eps * XM.abs() + xtol
+        tlim = tol / (Bb - A).abs().clamp_min(1e-300)
+        done = (tlim > 0.5) | (FM == 0)
+        xi = (A - Bb) / (C - Bb)
+        phi = (FA - FB) / (FC - FB)
         iqi = (phi**2 < xi) & ((1 - phi) ** 2 < 1 - xi)
-        t_iqi = fa / (fb - fa) * fc / (fb - fc) + (c - a) / (b - a) * fa / (fc - fa) * fb / (fc - fb)
-        t = torch.where(iqi & torch.isfinite(t_iqi), t_iqi, torch.full_like(t, 0.5))
-        t = torch.minimum(1 - tlim, torch.maximum(tlim, t)).clamp(0.0, 1.0)
+        t_iqi = FA / (FB - FA) * FC / (FB - FC) + (C - A) / (Bb - A) * FA / (FC - FA) * FB / (FC - FB)
+        T = torch.where(iqi & torch.isfinite(t_iqi), t_iqi, torch.full_like(T, 0.5))
+        T = torch.minimum(1 - tlim, torch.maximum(tlim, T)).clamp(0.0, 1.0)
+        for full, part in ((a, A), (fa, FA), (b, Bb), (fb, FB), (c, C), (fc, FC), (t, T), (xm, XM)):
+            full[act] = part
+        act = act[~done]
+        if act.numel() == 0:
+            break
     return xm
 
 
-def find_all_roots(
-    cond: Conditions, closure: Callable, kind: str = STRATIFIED, entrainment=0.0,
-    n_grid: int = 40, xtol: float = 1e-12, max_iter: int = 100,
-) -> tuple[torch.Tensor, torch.Tensor]:
-    """All roots (B, MAX_ROOTS) ascending NaN-padded, and the count of sign changes (B,).
+def _turn_search(F: Callable, a: torch.Tensor, m: torch.Tensor, c: torch.Tensor, ga: torch.Tensor,
+                 gm: torch.Tensor, gc: torch.Tensor) -> tuple[torch.Tensor, torch.Tensor, torch.Tensor, torch.Tensor]:
+    """Minimise g = s F on [a, c] from a triple with g(m) <= g(a), g(c), all g > 0.
 
-    ``cond`` has batch shape ``(B,)``. No gradients are tracked.
+    Golden-section search with parabolic steps (Brent 1973, *Algorithms for Minimization
+    without Derivatives*, ch. 5), vectorised; ``F(idx, x)`` returns g for candidates ``idx``.
+    Stops a candidate as soon as g <= 0 (a sign change: the pair is bracketed by [a, u] and
+    [u, c]) or when c - a < ``_TURN_XTOL``.
+
+    Returns ``(status, a, u, c)``: status 1 = pair bracketed at u, 0 = a true extremum with
+    g > 0 (no root here), -1 = tangency or no convergence (unresolved).
+    """
+    n = a.numel()
+    a, m, c, ga, gm, gc = (v.clone() for v in (a, m, c, ga, gm, gc))
+    g0 = torch.maximum(ga, gc)
+    status = torch.full((n,), -1, dtype=torch.int64)
+    u_found = m.clone()
+    act = torch.arange(n)
+    for k in range(_TURN_MAX_ITER):
+        A, M, C, GA, GM, GC = a[act], m[act], c[act], ga[act], gm[act], gc[act]
+        # vertex of the parabola through the triple
+        p = (M - A) ** 2 * (GM - GC) - (M - C) ** 2 * (GM - GA)
+        q = (M - A) * (GM - GC) - (M - C) * (GM - GA)
+        u = M - 0.5 * p / q
+        width = C - A
+        right = (C - M) > (M - A)
+        golden = torch.where(right, M + _INV_PHI2 * (C - M), M - _INV_PHI2 * (M - A))
+        ok = torch.isfinite(u) & (u > A + 0.01 * width) & (u < C - 0.01 * width) & ((u - M).abs() > 0.01 * width)
+        u = torch.where(ok & torch.tensor(k % 3 != 2), u, golden)
+        gu = F(act, u)
+        hit = gu <= 0
+        better = gu < GM
+        left = u < M
+        # keep a bracketing triple around the smallest g
+        nA = torch.where(better, torch.where(left, A, M), torch.where(left, u, A))
+        nC = torch.where(better, torch.where(left, M, C), torch.where(left, C, u))
+        nGA = torch.where(better, torch.where(left, GA, GM), torch.where(left, gu, GA))
+        nGC = torch.where(better, torch.where(left, GM, GC), torch.where(left, GC, gu))
+        nM, nGM = torch.where(better, u, M), torch.where(better, gu, GM)
+        for full, part in ((a, nA), (m, nM), (c, nC), (ga, nGA), (gm, nGM), (gc, nGC)):
+            full[act] = torch.where(hit, full[act], part)
+        u_found[act] = torch.where(hit, u, u_found[act])
+        idx_hit = act[hit]
+        status[idx_hit] = 1
+        done = hit | ((nC - nA) < _TURN_XTOL)
+        settled = act[~hit & done]
+        status[settled] = torch.where(gm[settled] > _TANGENT_RTOL * g0[settled], 0, -1)
+        act = act[~done]
+        if act.numel() == 0:
+            break
+    return status, a, u_found, c
+
+
+def _roots_chunk(cond: Conditions, E: torch.Tensor, closure: Callable, kind: str, grid: torch.Tensor,
+                 xtol: float, max_iter: int) -> RootSet:
+    """:func:`find_roots` for one chunk (flat batch ``(b,)``), under ``torch.no_grad``."""
+    b, n = cond.shape[0], grid.numel()
+    Fg = residual_fn(cond.unsqueeze(-1), closure, kind, E.unsqueeze(-1))(grid.expand(b, -1))
+    sgn = torch.signbit(Fg)
+    valid = torch.isfinite(Fg)
+    change = (sgn[:, 1:] != sgn[:, :-1]) & valid[:, 1:] & valid[:, :-1]
+    rows, cells = change.nonzero(as_tuple=True)
+    lo, hi = grid[cells], grid[cells + 1]
+    flo, fhi = Fg[rows, cells], Fg[rows, cells + 1]
+    n_roots = change.sum(dim=1)
+    unresolved = torch.zeros(b, dtype=torch.bool)
+
+    # sign-preserving local minima of |F| on the grid: a root pair may sit between the neighbours
+    absF = Fg.abs()
+    turn = ((sgn[:, 1:-1] == sgn[:, :-2]) & (sgn[:, 1:-1] == sgn[:, 2:]) & valid[:, :-2] & valid[:, 1:-1]
+            & valid[:, 2:] & (absF[:, 1:-1] < absF[:, :-2]) & (absF[:, 1:-1] <= absF[:, 2:]))
+    t_rows, t_j = turn.nonzero(as_tuple=True)
+    if t_rows.numel():
+        j = t_j + 1
+        s = torch.where(sgn[t_rows, j], -1.0, 1.0).to(Fg.dtype)
+        F_sub = _subset_fn(cond, E, closure, kind)
+        g = lambda idx, x: s[idx] * F_sub(t_rows[idx], x)  # noqa: E731
+        status, pa, pu, pc = _turn_search(g, grid[j - 1], grid[j], grid[j + 1],
+                                          s * Fg[t_rows, j - 1], s * Fg[t_rows, j], s * Fg[t_rows, j + 1])
+        pair = status == 1
+        if bool(pair.any()):
+            pr, ps = t_rows[pair], s[pair]
+            fu = F_sub(pr, pu[pair])
+            rows = torch.cat([rows, pr, pr])
+            lo = torch.cat([lo, pa[pair], pu[pair]])
+            hi = torch.cat([hi, pu[pair], pc[pair]])
+            flo = torch.cat([flo, F_sub(pr, pa[pair]), fu])
+            fhi = torch.cat([fhi, fu, F_sub(pr, pc[pair])])
+            n_roots = n_roots + 2 * torch.bincount(pr, minlength=b)
+        unresolved[t_rows[status < 0]] = True
+
+    # the first MAX_ROOTS brackets of each state in ascending order
+    order = torch.sort(lo, stable=True).indices
+    order = order[torch.sort(rows[order], stable=True).indices]
+    rows, lo, hi, flo, fhi = rows[order], lo[order], hi[order], flo[order], fhi[order]
+    start = torch.cumsum(torch.bincount(rows, minlength=b), 0) - torch.bincount(rows, minlength=b)
+    rank = torch.arange(rows.numel()) - start[rows]
+    keep = rank < MAX_ROOTS
+    rows, rank, lo, hi, flo, fhi = rows[keep], rank[keep], lo[keep], hi[keep], flo[keep], fhi[keep]
+    roots = torch.full((b, MAX_ROOTS), float("nan"), dtype=torch.float64)
+    if rows.numel():
+        F_br = _subset_fn(cond, E, closure, kind)
+        roots[rows, rank] = _chandrupatla(lambda idx, x: F_br(rows[idx], x), lo, hi, flo, fhi, xtol, max_iter)
+    return RootSet(roots=roots, n_roots=n_roots, unresolved=unresolved)
+
+
+def find_roots(
+    cond: Conditions, closure: Callable, kind: str = STRATIFIED, entrainment=0.0,
+    n_grid: int = 40, xtol: float = 1e-12, max_iter: int = 100, chunk: int = DEFAULT_CHUNK,
+) -> RootSet:
+    """All roots of a flat batch ``(B,)`` in chunks of ``chunk`` states (see module docstring).
+
+    No gradients are tracked. Memory grows with ``chunk * n_grid``, not with B.
     """
     with torch.no_grad():
         B = cond.shape[0]
         grid = frac_grid(kind, n_grid)
         E = torch.as_tensor(entrainment, dtype=torch.float64).expand(cond.shape)
-        Fg = residual_fn(cond.unsqueeze(-1), closure, kind, E.unsqueeze(-1))(grid.expand(B, -1))
-        sgn = torch.signbit(Fg)
-        valid = torch.isfinite(Fg)
-        change = (sgn[:, 1:] != sgn[:, :-1]) & valid[:, 1:] & valid[:, :-1]
-        n_roots = change.sum(dim=1)
-        # first MAX_ROOTS brackets of each state, in ascending order
-        cell = torch.arange(n_grid - 1).expand(B, -1)
-        key = torch.where(change, cell, torch.full_like(cell, n_grid))
-        idx = key.sort(dim=1).values[:, :MAX_ROOTS]
-        has = idx < n_grid
-        rows, slots = has.nonzero(as_tuple=True)
-        roots = torch.full((B, MAX_ROOTS), float("nan"), dtype=torch.float64)
-        if rows.numel():
-            j = idx[rows, slots]
-            a, b = grid[j], grid[j + 1]
-            fa, fb = Fg[rows, j], Fg[rows, j + 1]
-            F_sub = residual_fn(cond[rows], closure, kind, E[rows])
-            roots[rows, slots] = _chandrupatla(F_sub, a, b, fa, fb, xtol, max_iter)
-    return roots, n_roots
+        parts = [_roots_chunk(cond[i:i + chunk], E[i:i + chunk], closure, kind, grid, xtol, max_iter)
+                 for i in range(0, B, chunk)]
+        if len(parts) == 1:
+            return parts[0]
+        if not parts:
+            return RootSet(torch.empty(0, MAX_ROOTS, dtype=torch.float64), torch.empty(0, dtype=torch.int64),
+                           torch.empty(0, dtype=torch.bool))
+        return RootSet(*(torch.cat([getattr(p, k) for p in parts]) for k in ("roots", "n_roots", "unresolved")))
+
+
+def find_all_roots(
+    cond: Conditions, closure: Callable, kind: str = STRATIFIED, entrainment=0.0,
+    n_grid: int = 40, xtol: float = 1e-12, max_iter: int = 100, chunk: int = DEFAULT_CHUNK,
+) -> tuple[torch.Tensor, torch.Tensor]:
+    """All roots (B, MAX_ROOTS) ascending NaN-padded, and the count of roots found (B,).
+
+    ``cond`` has batch shape ``(B,)``. No gradients are tracked. See :func:`find_roots`.
+    """
+    r = find_roots(cond, closure, kind, entrainment, n_grid, xtol, max_iter, chunk)
+    return r.roots, r.n_roots
 
 
 def select_root(roots: torch.Tensor, rule: str = "thinnest") -> tuple[torch.Tensor, torch.Tensor]:
@@ -173,12 +320,13 @@ def select_root(roots: torch.Tensor, rule: str = "thinnest") -> tuple[torch.Tens
 
 def solve_separated(
     cond: Conditions, closure: Callable, kind: str = STRATIFIED, entrainment=0.0,
-    select: str = "thinnest", n_grid: int = 40, xtol: float = 1e-12,
+    select: str = "thinnest", n_grid: int = 40, xtol: float = 1e-12, chunk: int = DEFAULT_CHUNK,
 ) -> SeparatedSolution:
     """Solve the separated-flow equilibrium for a batch ``(B,)`` of conditions.
 
     Returns the selected root with implicit gradients, all roots, counts, flags and the
     state, friction factors, stresses and pressure gradient (-dp/dx, friction + gravity) there.
+    ``chunk`` bounds the root finder's memory (states per chunk); results do not depend on it.
 
     >>> from closure_nn.physics.conditions import make_conditions
     >>> from closure_nn.closures.baseline import BaselineClosure
@@ -186,12 +334,12 @@ def solve_separated(
     >>> int(sol.n_roots[0]), bool(sol.found[0]), 0 < float(sol.frac[0]) < 0.5
     (1, True, True)
     """
-    roots, n_roots = find_all_roots(cond, closure, kind, entrainment, n_grid, xtol)
-    pick, found = select_root(roots, select)
+    rs = find_roots(cond, closure, kind, entrainment, n_grid, xtol, chunk=chunk)
+    pick, found = select_root(rs.roots, select)
     pick = torch.where(found, pick, torch.full_like(pick, 0.5 * FRAC_MAX[kind]))
     frac = attach_implicit_grad(pick, residual_fn(cond, closure, kind, entrainment))
     s = local_state(cond, frac, kind, entrainment)
     f = closure(s)
     tau = shear_stresses(s, f)
-    return SeparatedSolution(frac=frac, roots=roots, n_roots=n_roots, found=found, state=s,
-                             friction=f, stresses=tau, pgrad=pressure_gradient(s, tau))
+    return SeparatedSolution(frac=frac, roots=rs.roots, n_roots=rs.n_roots, found=found, state=s,
+                             friction=f, stresses=tau, pgrad=pressure_gradient(s, tau), unresolved=rs.unresolved)

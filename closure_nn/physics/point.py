@@ -41,11 +41,15 @@ FLAG_MULTIPLE_ROOTS = 2
 FLAG_SINGLE_PHASE = 4
 #: annular predicted but the film equation had no root; stratified equilibrium reported
 FLAG_ANNULAR_NO_ROOT = 8
+#: the holdup equation touches zero at a tangency: a pair of roots may exist there below the
+#: solver's resolution, so ``n_roots`` and the selected root may be off (holdup_roots, step 2)
+FLAG_ROOT_PAIR_UNRESOLVED = 16
 FLAG_TEXT = {
     FLAG_NO_SEPARATED_ROOT: "no separated-flow equilibrium",
     FLAG_MULTIPLE_ROOTS: "several holdup roots",
     FLAG_SINGLE_PHASE: "single-phase",
     FLAG_ANNULAR_NO_ROOT: "no annular-film root, stratified value reported",
+    FLAG_ROOT_PAIR_UNRESOLVED: "a holdup root pair may be unresolved (tangency)",
 }
 _EDGE = 1e-9
 
@@ -137,6 +141,7 @@ def solve_points(
     pg = strat.pgrad
     frac = strat.frac
     flags = torch.where(strat.found, 0, FLAG_NO_SEPARATED_ROOT) + torch.where(strat.n_roots > 1, FLAG_MULTIPLE_ROOTS, 0)
+    flags = flags + torch.where(strat.unresolved, FLAG_ROOT_PAIR_UNRESOLVED, 0)
 
     # annular rows: the film equilibrium of the same closure
     is_ann = pattern == V.CODE[V.ANNULAR]
@@ -150,6 +155,8 @@ def solve_points(
         holdup, frac = scatter(holdup, ann.holdup), scatter(frac, ann.frac)
         pg = PressureGradient(*(scatter(x, y) for x, y in zip(pg, ann.pgrad)))
         flags = flags + torch.where(is_ann & ~ok, FLAG_ANNULAR_NO_ROOT, 0)
+        ann_unres = torch.zeros_like(is_ann).index_put((idx,), ann.unresolved)
+        flags = torch.where(ann_unres & ((flags & FLAG_ROOT_PAIR_UNRESOLVED) == 0), flags + FLAG_ROOT_PAIR_UNRESOLVED, flags)
 
     # non-separated patterns: published drift-flux / slug models
     for code, model in ((V.CODE[V.INTERMITTENT], intermittent_flow), (V.CODE[V.DISPERSED_BUBBLE], dispersed_bubble_flow),
