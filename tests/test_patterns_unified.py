@@ -328,3 +328,33 @@ def test_fine_tune_on_pattern_only_rows_moves_the_kh_boundary_toward_the_observa
     assert d_start > 0.1  # the invented truth is far enough from the start to learn something
     assert d_fit < 0.5 * d_start
     assert acc_fit >= acc_start + 0.05
+
+
+# ---- per-band scores and the band figure -----------------------------------------------------
+
+def test_band_accuracy_counts_and_band_figure(tmp_path):
+    # INVENTED observations: the baseline's own patterns (no observer errors) score 100 % in every
+    # band; relabelling a known set of rows lowers each band's count by exactly those rows.
+    from closure_nn.data.closure_table import noisy_table
+    from closure_nn.data.design_space import parse_design
+    from closure_nn.report.pattern_map import BANDS, band_accuracy, plot_pattern_bands
+
+    design = parse_design({"name": "bands", "variables": {
+        "vsl": {"law": "log_uniform", "low": 0.003, "high": 5.0}, "vsg": {"law": "log_uniform", "low": 0.1, "high": 40.0},
+        "D": {"law": "choice", "values": [25.0, 51.0], "unit": "mm"},
+        "theta": {"law": "uniform", "low": -90.0, "high": 90.0, "unit": "deg"}, "roughness": 0.0,
+        "rhol": 998.0, "rhog": 1.2, "mul": 1.0e-3, "mug": 1.8e-5, "sigma": 0.072}})
+    obs = noisy_table(design, 120, 3, BASE, label_flip=0.0)
+    scores = band_accuracy(BASE, obs)
+    assert [s["band"] for s in scores] == list(BANDS)
+    assert sum(s["n"] for s in scores) == 120
+    assert all(s["correct"] == s["n"] for s in scores)
+    wrong = obs.copy()
+    flip = np.arange(0, 120, 7)
+    wrong.loc[flip, "pattern"] = ["bubble" if p != "bubble" else "annular" for p in wrong.loc[flip, "pattern"]]
+    deg = np.degrees(obs["theta"].to_numpy())
+    for s, (lo, hi) in zip(band_accuracy(BASE, wrong), BANDS):
+        in_band = (deg >= lo) & ((deg < hi) if hi < 90 else (deg <= hi))
+        assert s["n"] - s["correct"] == int(in_band[flip].sum())
+    png = plot_pattern_bands(BASE, wrong, tmp_path / "bands.png", n=24, data_note="INVENTED observations.")
+    assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" and png.stat().st_size > 20_000

@@ -5,10 +5,17 @@ on an ``n x n`` grid for given fluids, diameter and inclination; the pattern the
 the closure's own stratified equilibrium (Taitel & Dukler 1976 criteria, Taitel, Barnea & Dukler
 1980 for steep upflow; see :mod:`closure_nn.physics.patterns`).
 
-:func:`plot_pattern_map` draws (our own layout): the first closure's regions filled, each region
-named in place; a second closure's boundaries as dark dashed lines over them; data points marked
-by their observed pattern (shape and fill); the caution as a footnote. Colours are the project's
+:func:`plot_pattern_map` draws (our own layout): the first closure's regions filled with thin solid
+boundaries, each region named in place where its name stays clear of edges and markers
+(:func:`label_spots`; else in the legend); a second closure's boundaries as dark dashed lines;
+data points marked by their observed pattern (shape and fill) with a dark edge and a white halo,
+so a point stays visible inside the region of its own colour; the caution as a footnote. Colours are the project's
 pattern palette (:data:`closure_nn.report.line_plots.PATTERN_COLOURS`).
+
+:func:`band_accuracy` and :func:`plot_pattern_bands` score and draw observed patterns per
+inclination band (:data:`BANDS`): each observation solved at its own conditions by the point
+solver, and one panel per band with the closure's map at the band's median inclination and
+diameter behind the band's observations (ringed where the closure disagrees).
 """
 from __future__ import annotations
 
@@ -33,6 +40,7 @@ MARKERS: dict[str, str] = {
 }
 AIR_WATER = dict(rhol=998.0, rhog=1.2, mul=1.0e-3, mug=1.8e-5, sigma=0.072)
 BOUNDARY_COLOUR = "#1a1a1a"
+MARKER_EDGE = "#141414"  #: dark marker edge; a white halo around it keeps markers visible in any region
 
 
 def _nice(name: str) -> str:
@@ -80,28 +88,91 @@ def compute_pattern_map(closure, D: float, theta_deg: float = 0.0, fluids: dict 
     return PatternMap(gs, ls, res.pattern.numpy().reshape(L.shape), label, float(D), float(theta_deg), fl)
 
 
-def _centroid_labels(ax, m: PatternMap) -> None:
-    """Name each filled region at its largest-area cell cluster centre (log coordinates)."""
+#: label box half-size in axes fractions: width per character, height (font size 8 at this figure size)
+_CHAR_W, _HALF_H = 0.0078, 0.026
+
+
+def _boundary_cells(codes: np.ndarray) -> np.ndarray:
+    """(n_vsl, n_vsg) bool: grid cells with a neighbour of another pattern."""
+    b = np.zeros(codes.shape, dtype=bool)
+    b[1:, :] |= codes[1:, :] != codes[:-1, :]
+    b[:-1, :] |= codes[1:, :] != codes[:-1, :]
+    b[:, 1:] |= codes[:, 1:] != codes[:, :-1]
+    b[:, :-1] |= codes[:, 1:] != codes[:, :-1]
+    return b
+
+
+def label_spots(m: PatternMap, points: np.ndarray | None = None, min_share: float = 0.01) -> dict[int, tuple[float, float]]:
+    """Where to write each region's name: the cell of the region whose label box keeps farthest
+    from the region's edge and from every data marker (box distance, in box sizes). A region
+    whose name cannot be written clear of both (no cell scores >= 1) gets no spot: it is named
+    in the legend only.
+
+    ``points``: (N, 2) marker positions (vsg, vsl) [m/s]. Returns {pattern code: (vsg, vsl)}.
+
+    >>> from closure_nn.physics.vocabulary import CODE
+    >>> codes = np.zeros((40, 40), dtype=int); codes[:, 20:] = CODE["annular"]
+    >>> g = np.logspace(-1, 1, 40)
+    >>> pm = PatternMap(g, g, codes, "x", 0.05, 0.0, {})
+    >>> spots = label_spots(pm)
+    >>> sorted(spots) == sorted({0, CODE["annular"]}) and spots[CODE["annular"]][0] > 1.0
+    True
+    >>> label_spots(pm, points=np.array([[x, y] for x in g[::2] for y in g[::2]])) == {}  # markers everywhere
+    True
+    """
     lg, ll = np.log10(m.vsg), np.log10(m.vsl)
+    u = (lg - lg[0]) / (lg[-1] - lg[0])  # axes fractions
+    v = (ll - ll[0]) / (ll[-1] - ll[0])
+    V, U = np.meshgrid(v, u, indexing="ij")
+    edge = _boundary_cells(m.codes)
+    eu, ev = U[edge], V[edge]
+    if points is not None and len(points):
+        pu = (np.log10(points[:, 0]) - lg[0]) / (lg[-1] - lg[0])
+        pv = (np.log10(points[:, 1]) - ll[0]) / (ll[-1] - ll[0])
+    else:
+        pu = pv = np.zeros(0)
+    # the frame counts as an edge too: a label must fit inside the axes
+    out = {}
     for code in np.unique(m.codes):
         mask = m.codes == code
-        if mask.sum() < 0.01 * mask.size:
+        if mask.sum() < min_share * mask.size:
             continue
+        hw = _CHAR_W * len(_nice(PATTERNS[int(code)])) + 0.01
         ii, jj = np.nonzero(mask)
-        # the point of the region farthest from other patterns is a safe label spot; approximate by
-        # the region cell nearest to its centroid
-        ci, cj = ii.mean(), jj.mean()
-        k = int(np.argmin((ii - ci) ** 2 + (jj - cj) ** 2))
-        ax.text(10 ** lg[jj[k]], 10 ** ll[ii[k]], _nice(PATTERNS[int(code)]), ha="center", va="center", fontsize=8,
-                color="#111111", bbox=dict(boxstyle="round,pad=0.2", fc="white", ec="none", alpha=0.6))
+        cu, cv = U[ii, jj], V[ii, jj]
+
+        def box_dist(qu: np.ndarray, qv: np.ndarray) -> np.ndarray:
+            if len(qu) == 0:
+                return np.full(len(cu), np.inf)
+            d = np.maximum(np.abs(cu[:, None] - qu[None, :]) / hw, np.abs(cv[:, None] - qv[None, :]) / _HALF_H)
+            return d.min(axis=1)
+
+        other = m.codes[edge] != code  # edge cells of other regions bound this one
+        frame = np.minimum(np.minimum(cu / hw, (1 - cu) / hw), np.minimum(cv / _HALF_H, (1 - cv) / _HALF_H))
+        score = np.minimum.reduce([box_dist(eu[other], ev[other]), box_dist(pu, pv) / 1.3, frame])
+        k = int(np.argmax(score))
+        if score[k] >= 1.0:
+            out[int(code)] = (float(10 ** lg[jj[k]]), float(10 ** ll[ii[k]]))
+    return out
+
+
+def _region_labels(ax, m: PatternMap, points: np.ndarray | None) -> list[str]:
+    """Name each filled region in place, clear of markers and edges; returns the names not placed."""
+    spots = label_spots(m, points)
+    for code, (x, y) in spots.items():
+        ax.text(x, y, _nice(PATTERNS[code]), ha="center", va="center", fontsize=8, color="#111111", zorder=6,
+                bbox=dict(boxstyle="round,pad=0.25", fc="white", ec="#666666", lw=0.5, alpha=0.85))
+    return [PATTERNS[int(c)] for c in np.unique(m.codes) if int(c) not in spots]
 
 
 def plot_pattern_map(base: PatternMap, path: str | Path, other: PatternMap | None = None, data=None,
                      title: str | None = None, data_note: str = "") -> Path:
-    """Draw ``base`` filled, ``other`` as boundaries, ``data`` (DataFrame with vsl, vsg, pattern) as points."""
+    """Draw ``base`` filled with its boundaries as thin solid lines, ``other``'s boundaries dashed,
+    ``data`` (DataFrame with vsl, vsg, pattern) as points with a dark edge and a white halo."""
     import matplotlib
 
     matplotlib.use("Agg")
+    import matplotlib.patheffects as pe
     import matplotlib.pyplot as plt
     from matplotlib.colors import BoundaryNorm, ListedColormap
     from matplotlib.lines import Line2D
@@ -115,40 +186,48 @@ def plot_pattern_map(base: PatternMap, path: str | Path, other: PatternMap | Non
     ax.pcolormesh(base.vsg, base.vsl, base.codes, cmap=cmap, norm=norm, shading="nearest", alpha=0.85)
     ax.set_xscale("log")
     ax.set_yscale("log")
-    _centroid_labels(ax, base)
+    _boundaries(ax, base, ls="-", lw=0.9)
     blank = Patch(facecolor="none", edgecolor="none")
     handles = [blank]
-    labels = ["\n".join(textwrap.wrap(f"Filled regions: {base.label}", 46))]
+    labels = ["\n".join(textwrap.wrap(f"Filled regions, solid lines: {base.label}", 46))]
     for c in np.unique(base.codes):
         handles.append(Patch(facecolor=PATTERN_COLOURS[PATTERNS[c]], edgecolor="#777777", alpha=0.85))
         labels.append(_nice(PATTERNS[c]))
+    handles.append(Line2D([], [], color=BOUNDARY_COLOUR, ls="-", lw=0.9))
+    labels.append("baseline boundary")
     if other is not None:
-        for code in np.unique(np.r_[other.codes.ravel(), base.codes.ravel()]):
-            ind = (other.codes == code).astype(float)
-            if 0 < ind.sum() < ind.size:
-                ax.contour(other.vsg, other.vsl, ind, levels=[0.5], colors=BOUNDARY_COLOUR, linewidths=1.4,
-                           linestyles="--")
-        handles += [blank, Line2D([], [], color=BOUNDARY_COLOUR, ls="--", lw=1.4)]
-        labels += ["\n".join(textwrap.wrap(f"Dashed lines: region boundaries of {other.label}", 46)),
-                   "pattern boundary"]
+        _boundaries(ax, other, ls="--", lw=1.6)
+        handles += [blank, Line2D([], [], color=BOUNDARY_COLOUR, ls="--", lw=1.6)]
+        labels += ["\n".join(textwrap.wrap(f"Dashed lines: {other.label}", 46)), "its region boundary"]
+    halo = [pe.withStroke(linewidth=3.2, foreground="white")]
+    points = None
     if data is not None and len(data):
+        points = data[["vsg", "vsl"]].to_numpy(np.float64)
         handles.append(blank)
         labels.append("Measured points, by observed pattern")
         for name in PATTERNS:
             sel = data["pattern"].astype(str) == name
             if sel.any():
-                ax.scatter(data.loc[sel, "vsg"], data.loc[sel, "vsl"], marker=MARKERS[name], s=34,
-                           facecolor=PATTERN_COLOURS[name], edgecolor="#000000", linewidth=0.9, zorder=4)
-                handles.append(Line2D([], [], marker=MARKERS[name], ls="none", markersize=6,
-                                      markerfacecolor=PATTERN_COLOURS[name], markeredgecolor="#000000"))
+                ax.scatter(data.loc[sel, "vsg"], data.loc[sel, "vsl"], marker=MARKERS[name], s=36,
+                           facecolor=PATTERN_COLOURS[name], edgecolor=MARKER_EDGE, linewidth=1.0, zorder=5,
+                           path_effects=halo)
+                handles.append(Line2D([], [], marker=MARKERS[name], ls="none", markersize=6.5,
+                                      markerfacecolor=PATTERN_COLOURS[name], markeredgecolor=MARKER_EDGE,
+                                      path_effects=halo))
                 labels.append(f"{_nice(name)} ({int(sel.sum())})")
         unl = ~data["pattern"].astype(str).isin(PATTERNS)
         if unl.any():
-            ax.scatter(data.loc[unl, "vsg"], data.loc[unl, "vsl"], marker=".", s=30, color="#000000", zorder=4)
-            handles.append(Line2D([], [], marker=".", ls="none", color="#000000"))
+            ax.scatter(data.loc[unl, "vsg"], data.loc[unl, "vsl"], marker="o", s=10, color=MARKER_EDGE, zorder=5,
+                       path_effects=halo)
+            handles.append(Line2D([], [], marker="o", markersize=3.5, ls="none", color=MARKER_EDGE, path_effects=halo))
             labels.append(f"not recorded ({int(unl.sum())})")
     ax.set_xlim(base.vsg[0], base.vsg[-1])
     ax.set_ylim(base.vsl[0], base.vsl[-1])
+    unplaced = _region_labels(ax, base, points)
+    if unplaced:  # named in the legend only: say so
+        handles.append(blank)
+        labels.append("\n".join(textwrap.wrap("Regions too crowded to name in place: " +
+                                              ", ".join(_nice(n) for n in unplaced) + " (see the colours above)", 46)))
     ax.set_xlabel("superficial gas velocity v_SG [m/s]")
     ax.set_ylabel("superficial liquid velocity v_SL [m/s]")
     f = base.fluids
@@ -163,6 +242,14 @@ def plot_pattern_map(base: PatternMap, path: str | Path, other: PatternMap | Non
     fig.savefig(path, dpi=110)
     plt.close(fig)
     return Path(path)
+
+
+def _boundaries(ax, m: PatternMap, ls: str, lw: float) -> None:
+    """Every region boundary of ``m`` as a contour line."""
+    for code in np.unique(m.codes):
+        ind = (m.codes == code).astype(float)
+        if 0 < ind.sum() < ind.size:
+            ax.contour(m.vsg, m.vsl, ind, levels=[0.5], colors=BOUNDARY_COLOUR, linewidths=lw, linestyles=ls)
 
 
 def short(label: str) -> str:
