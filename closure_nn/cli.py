@@ -88,13 +88,28 @@ def main(argv: list[str] | None = None) -> int:
         name = args[0]
         module = importlib.import_module(COMMANDS[name][0])
         cmd_parser = _Parser(prog=f"closure-nn {name}", description=COMMANDS[name][1],
-                             epilog="Extra key=value arguments override the command's Hydra config.")
+                             epilog=_epilog(name, args[1:]), formatter_class=argparse.RawDescriptionHelpFormatter)
         module.add_arguments(cmd_parser)
         args, overrides = _split(argv, _value_options(cmd_parser))
         ns = cmd_parser.parse_args(args[1:])
         return int(module.run(ns, overrides) or 0)
     except BaseException as exc:  # the error boundary: one line, a code, the traceback in a log
         return _report(exc, name, debug, CREATED_RUN_DIRS[n_runs:])
+
+
+def _epilog(name: str, args: list[str]) -> str:
+    """The epilog of a command's help: with -h/--help, its main config keys generated from conf/
+    (:func:`closure_nn.config_help.config_epilog`); a config that cannot be composed leaves a note."""
+    base = "Extra key=value arguments override the command's Hydra config."
+    if not any(a in ("-h", "--help") for a in args):
+        return base
+    try:
+        from .config_help import config_epilog
+
+        keys = config_epilog(name)
+    except Exception as exc:  # the help must show even when a config is broken
+        keys = f"(the config keys cannot be listed: {_one_line(str(exc))})"
+    return f"{keys}\n\n{base}" if keys else base
 
 
 class _UsageError(Exception):

@@ -199,7 +199,7 @@ def plot_pattern_map(base: PatternMap, path: str | Path, other: PatternMap | Non
         _boundaries(ax, other, ls="--", lw=1.6)
         handles += [blank, Line2D([], [], color=BOUNDARY_COLOUR, ls="--", lw=1.6)]
         labels += ["\n".join(textwrap.wrap(f"Dashed lines: {other.label}", 46)), "its region boundary"]
-    halo = [pe.withStroke(linewidth=3.2, foreground="white")]
+    halo = [pe.withStroke(linewidth=2.6, foreground="white")]
     points = None
     if data is not None and len(data):
         points = data[["vsg", "vsl"]].to_numpy(np.float64)
@@ -217,7 +217,7 @@ def plot_pattern_map(base: PatternMap, path: str | Path, other: PatternMap | Non
                 labels.append(f"{_nice(name)} ({int(sel.sum())})")
         unl = ~data["pattern"].astype(str).isin(PATTERNS)
         if unl.any():
-            ax.scatter(data.loc[unl, "vsg"], data.loc[unl, "vsl"], marker="o", s=10, color=MARKER_EDGE, zorder=5,
+            ax.scatter(data.loc[unl, "vsg"], data.loc[unl, "vsl"], marker="o", s=10, color=MARKER_EDGE, zorder=4,
                        path_effects=halo)
             handles.append(Line2D([], [], marker="o", markersize=3.5, ls="none", color=MARKER_EDGE, path_effects=halo))
             labels.append(f"not recorded ({int(unl.sum())})")
@@ -226,7 +226,7 @@ def plot_pattern_map(base: PatternMap, path: str | Path, other: PatternMap | Non
     unplaced = _region_labels(ax, base, points)
     if unplaced:  # named in the legend only: say so
         handles.append(blank)
-        labels.append("\n".join(textwrap.wrap("Regions too crowded to name in place: " +
+        labels.append("\n".join(textwrap.wrap("Not named in place (too narrow or crowded): " +
                                               ", ".join(_nice(n) for n in unplaced) + " (see the colours above)", 46)))
     ax.set_xlabel("superficial gas velocity v_SG [m/s]")
     ax.set_ylabel("superficial liquid velocity v_SL [m/s]")
