@@ -58,24 +58,58 @@ def shear_stresses(s: LocalState, f: FrictionFactors) -> Stresses:
     )
 
 
+def liquid_terms(s: LocalState, tau: Stresses, pgrad: torch.Tensor) -> tuple[torch.Tensor, ...]:
+    r"""The four signed terms of the liquid momentum balance [N/m], in the order of
+    :func:`liquid_residual`: pressure, wall shear, interfacial shear, gravity."""
+    c, g = s.cond, s.geom
+    return g.A_L * pgrad, -tau.tau_wl * g.S_L, tau.tau_i * g.S_i, -c.rhol * g.A_L * c.g * torch.sin(c.theta)
+
+
 def liquid_residual(s: LocalState, tau: Stresses, pgrad: torch.Tensor) -> torch.Tensor:
     r"""Liquid momentum residual per unit length [N/m3 x m2 = N/m]:
 
     .. math:: R_L = A_L\,\mathrm{pgrad} - \tau_{WL} S_L + \tau_i S_i - \rho_L A_L g\sin\theta
 
-    with pgrad = -dp/dx [Pa/m]. Zero at a consistent state.
+    with pgrad = -dp/dx [Pa/m]. Zero at a consistent state. Source: Taitel & Dukler (1976), eq. 1.
     """
+    return sum(liquid_terms(s, tau, pgrad))
+
+
+def gas_terms(s: LocalState, tau: Stresses, pgrad: torch.Tensor) -> tuple[torch.Tensor, ...]:
+    r"""The four signed terms of the gas (core) momentum balance [N/m], in the order of
+    :func:`gas_residual`: pressure, wall shear, interfacial shear, gravity."""
     c, g = s.cond, s.geom
-    return g.A_L * pgrad - tau.tau_wl * g.S_L + tau.tau_i * g.S_i - c.rhol * g.A_L * c.g * torch.sin(c.theta)
+    return g.A_G * pgrad, -tau.tau_wg * g.S_G, -tau.tau_i * g.S_i, -s.rho_core * g.A_G * c.g * torch.sin(c.theta)
 
 
 def gas_residual(s: LocalState, tau: Stresses, pgrad: torch.Tensor) -> torch.Tensor:
     r"""Gas (core) momentum residual per unit length [N/m]:
 
     .. math:: R_G = A_G\,\mathrm{pgrad} - \tau_{WG} S_G - \tau_i S_i - \rho_G A_G g\sin\theta
+
+    Source: Taitel & Dukler (1976), eq. 2.
     """
+    return sum(gas_terms(s, tau, pgrad))
+
+
+def phase_misfits(s: LocalState, tau: Stresses, pgrad: torch.Tensor) -> tuple[torch.Tensor, torch.Tensor]:
+    r"""Both phase balances per unit phase area [Pa/m]: :math:`R_L/A_L` and :math:`R_G/A_G`, i.e. the
+    given pgrad minus the pgrad that each phase balance implies with the stresses ``tau``. The
+    residuals of the training loss, the metrics and the audit at a measured state."""
+    return liquid_residual(s, tau, pgrad) / s.geom.A_L, gas_residual(s, tau, pgrad) / s.geom.A_G
+
+
+def term_scale(terms: tuple[torch.Tensor, ...]) -> torch.Tensor:
+    r"""The sum of the magnitudes of a balance's terms, :math:`\sum_k |t_k|`: the scale a residual
+    is measured against (a residual much smaller than it is a balanced equation)."""
+    return sum(t.abs() for t in terms)
+
+
+def combined_terms(s: LocalState, tau: Stresses) -> tuple[torch.Tensor, ...]:
+    r"""The four signed terms of :func:`combined_residual` [Pa/m], in its order."""
     c, g = s.cond, s.geom
-    return g.A_G * pgrad - tau.tau_wg * g.S_G - tau.tau_i * g.S_i - s.rho_core * g.A_G * c.g * torch.sin(c.theta)
+    return (tau.tau_wg * g.S_G / g.A_G, -tau.tau_wl * g.S_L / g.A_L, tau.tau_i * g.S_i * (1 / g.A_L + 1 / g.A_G),
+            -(c.rhol - s.rho_core) * c.g * torch.sin(c.theta))
 
 
 def combined_residual(s: LocalState, tau: Stresses) -> torch.Tensor:
@@ -89,13 +123,7 @@ def combined_residual(s: LocalState, tau: Stresses) -> torch.Tensor:
     the equilibrium liquid levels. F -> -inf as h/D -> 0 and +inf as h/D -> 1 for positive
     rates, so an odd number of roots exists.
     """
-    c, g = s.cond, s.geom
-    return (
-        tau.tau_wg * g.S_G / g.A_G
-        - tau.tau_wl * g.S_L / g.A_L
-        + tau.tau_i * g.S_i * (1 / g.A_L + 1 / g.A_G)
-        - (c.rhol - s.rho_core) * c.g * torch.sin(c.theta)
-    )
+    return sum(combined_terms(s, tau))
 
 
 class PressureGradient(NamedTuple):

@@ -110,7 +110,8 @@ from ..physics.conditions import FIELD_NAMES, Conditions
 from ..physics.geometry import STRATIFIED
 from ..physics.holdup_roots import solve_separated
 from ..physics.local_state import LocalState, local_state
-from ..physics.momentum import FrictionFactors, combined_residual, gas_residual, liquid_residual, shear_stresses
+from ..physics.momentum import (FrictionFactors, Stresses, combined_residual, combined_terms, phase_misfits,
+                                shear_stresses, term_scale)
 from ..physics.patterns import THETA_STEEP, kh_gas_velocity
 from ..physics.vocabulary import CODE, DISPERSED_BUBBLE, INTERMITTENT, STRATIFIED_PATTERNS
 from ..physics.vocabulary import ANNULAR as ANNULAR_PATTERN
@@ -280,9 +281,70 @@ def holdup_sensitivity(closure, cond: Conditions, holdup: torch.Tensor, holdup_s
         for sign in (1.0, -1.0):
             Hs = (holdup + sign * holdup_sd).clamp(1e-6, 1 - 1e-6)
             s = local_state(cond, frac_from_holdup(Hs, kind), kind)
-            tau = shear_stresses(s, closure(s))
-            out.append((liquid_residual(s, tau, pgrad) / s.geom.A_L, gas_residual(s, tau, pgrad) / s.geom.A_G))
+            out.append(phase_misfits(s, shear_stresses(s, closure(s)), pgrad))
         return (0.5 * (out[0][0] - out[1][0])).abs(), (0.5 * (out[0][1] - out[1][1])).abs()
+
+
+# --------------------------------------------------------------------------- the terms, one function each
+def phase_residual_term(s: LocalState, tau: Stresses, pgrad: torch.Tensor, sd_l: torch.Tensor, sd_g: torch.Tensor,
+                        c: float | None = None) -> torch.Tensor:
+    r"""``phase_residual`` per row ``(M,)``: :math:`\tfrac12[\rho(r_L) + \rho(r_G)]` with
+    :math:`r_L = (R_L/A_L)/\sigma_L`, :math:`r_G = (R_G/A_G)/\sigma_G` at the measured state and
+    :math:`\rho` = :func:`cauchy` (scale ``c``; plain squares for None).
+
+    >>> from closure_nn.physics.conditions import make_conditions
+    >>> from closure_nn.closures.baseline import BaselineClosure
+    >>> st = local_state(make_conditions(vsl=0.05, vsg=2.0, D=0.05), torch.tensor(0.3, dtype=torch.float64), "stratified")
+    >>> tau = shear_stresses(st, BaselineClosure()(st))
+    >>> r_l, r_g = phase_misfits(st, tau, torch.tensor(0.0, dtype=torch.float64))
+    >>> p = torch.tensor(0.0, dtype=torch.float64) - r_l  # pgrad the liquid balance implies
+    >>> sd = torch.tensor(2.0, dtype=torch.float64)
+    >>> float(phase_residual_term(st, tau, p + 2 * sd, sd, sd)) == 0.5 * (2.0**2 + float((r_g - r_l) / sd + 2) ** 2)
+    True
+    """
+    r_l, r_g = phase_misfits(s, tau, pgrad)
+    return 0.5 * (cauchy(r_l / sd_l, c) + cauchy(r_g / sd_g, c))
+
+
+def combined_residual_term(s: LocalState, tau: Stresses, tau_base: Stresses) -> torch.Tensor:
+    r"""``combined_residual`` per row ``(M,)``: :math:`[F / \sum_k |F_k^\mathrm{base}|]^2`, the combined
+    balance at the measured state over the magnitude of its four terms with the baseline's stresses
+    ``tau_base`` (a fixed, parameter-free scale per row)."""
+    return (combined_residual(s, tau) / term_scale(combined_terms(s, tau_base)).clamp_min(1e-12)) ** 2
+
+
+def data_misfit_term(predicted: torch.Tensor, measured: torch.Tensor, sd: torch.Tensor, c: float | None = None) -> torch.Tensor:
+    r"""``data_holdup`` / ``data_pgrad`` per row: :math:`\rho((\hat y - y)/\sigma)`, :math:`\rho` = :func:`cauchy`.
+
+    >>> t = lambda *v: torch.tensor(v, dtype=torch.float64)
+    >>> [round(x, 9) for x in data_misfit_term(t(0.32, 0.5), t(0.30, 0.2), t(0.01, 0.01)).tolist()]
+    [4.0, 900.0]
+    """
+    return cauchy((predicted - measured) / sd, c)
+
+
+def pattern_term(margin: torch.Tensor, observed_stratified: torch.Tensor, delta: float, tol: float) -> torch.Tensor:
+    r"""``pattern`` per row: with the Kelvin-Helmholtz margin :math:`m = u_G/u_{G,KH} - 1` of the
+    closure's stratified equilibrium, :math:`[\max(m + \delta, 0)/t]^2` for a row observed stratified
+    and :math:`[\max(\delta - m, 0)/t]^2` for a row observed in a pattern where stratified flow is unstable.
+
+    >>> t = lambda *v: torch.tensor(v, dtype=torch.float64)
+    >>> [round(x, 9) for x in pattern_term(t(-0.10, 0.02, 0.02, 0.30), t(1, 1, 0, 0).bool(), 0.05, 0.05).tolist()]
+    [0.0, 1.96, 0.36, 0.0]
+    """
+    short = torch.where(observed_stratified, torch.relu(margin + delta), torch.relu(delta - margin))
+    return (short / tol) ** 2
+
+
+def prior_term(dlog: torch.Tensor, lam: torch.Tensor) -> torch.Tensor:
+    r"""``prior`` per row: :math:`\sum_k \lambda_k d_k^2` with ``dlog`` ``(M, 3)`` the distance to the
+    baseline (:math:`\ln f_k - \ln f_{k,\mathrm{base}}`, or :math:`b_k o_k` in the unbounded space).
+
+    >>> lam = torch.tensor([1.0, 1.0, 0.01], dtype=torch.float64)
+    >>> [round(x, 9) for x in prior_term(torch.tensor([[0.1, 0.0, 2.0]], dtype=torch.float64), lam).tolist()]
+    [0.05]
+    """
+    return (lam * dlog**2).sum(dim=-1)
 
 
 class _Acc:
@@ -308,6 +370,7 @@ class ClosureLoss(nn.Module):
 
     ``terms`` maps every name of :data:`TERMS` to its (unweighted) mean, ``counts`` to the
     number of rows it used; ``counts['no_root']`` counts rows whose equilibrium was not found.
+    The terms are the functions above; this class only selects the rows each one applies to.
     """
 
     def __init__(self, settings: LossSettings | None = None) -> None:
@@ -319,85 +382,101 @@ class ClosureLoss(nn.Module):
         # rows of unknown pattern under unknown_pattern='predicted': the configuration of the
         # pattern the closure in training predicts for them now (no gradient through the choice)
         kinds = batch_kinds(batch, closure, cfg.select, cfg.n_grid)
-        w_row = batch["weight"]
-        sh, sp = uncertainties(batch, cfg)
-        H, P = batch["holdup"], batch["pgrad"]
-        has_h, has_p = torch.isfinite(H), torch.isfinite(P)
-        # a measured state needs 0 < H < 1: a reading of exactly 0 or 1 (clipped by the data
-        # reduction) is no separated-flow state; such rows keep only their data-misfit terms
-        state_h = measured_state_rows(H)
-        frac_meas = batch.get("frac_measured")  # precomputed measured_frac(batch), if given
-        wt = cfg.weights
-        use_res = wt["phase_residual"] > 0 or wt["combined_residual"] > 0
-        use_data = wt["data_holdup"] > 0 or wt["data_pgrad"] > 0
-        no_root = 0
-        need_smooth = wt["smooth"] > 0 and torch.is_grad_enabled()
+        has_target = torch.isfinite(batch["holdup"]) | torch.isfinite(batch["pgrad"])
+        need_smooth = cfg.weights["smooth"] > 0 and torch.is_grad_enabled()
         # one closure evaluation per set of states, shared by the residuals, the prior and the
         # smoothness penalty: (state, row weights, evaluation or None = not evaluated yet)
         reg_states: list[tuple[LocalState, torch.Tensor, NeuralEvaluation | None]] = []
+        no_root = 0
         for kind in KINDS:
             sel = kinds == KIND_CODE[kind]
-            # --- (1), (2): residuals at the measured state
-            meas = sel & state_h
-            if meas.any():
-                im = meas.nonzero().squeeze(-1)  # row indices: one mask conversion for every column
-                c = batch_conditions(batch, im)
-                frac = frac_from_holdup(H[im], kind) if frac_meas is None else frac_meas[im]
-                if frac_meas is not None and bool((kinds[im] != batch["kind"][im]).any()):
-                    # rows whose kind was just predicted have no precomputed level
-                    frac = torch.where(kinds[im] != batch["kind"][im], frac_from_holdup(H[im], kind).detach(), frac)
-                s = local_state(c, frac, kind)
-                ev = closure.evaluate(s, input_grad=need_smooth) if use_res else None
-                reg_states.append((s, w_row[im], ev))
-            if meas.any() and use_res:
-                f = ev.friction()
-                tau = shear_stresses(s, f)
-                both = has_p[im]
-                if both.any():
-                    p, sig = P[im][both], sp[im][both]
-                    if bool(both.all()):  # the same state, not rebuilt from an all-true mask
-                        sb, tb = s, tau
-                    else:
-                        sb = local_state(c[both], s.geom.frac[both], kind)
-                        tb = type(tau)(*(t[both] for t in tau))
-                    s_l = s_g = sig
-                    if cfg.effective_variance:
-                        d_l, d_g = holdup_sensitivity(closure, c[both], H[im][both], sh[im][both], kind, p)
-                        s_l, s_g = torch.sqrt(sig**2 + d_l**2), torch.sqrt(sig**2 + d_g**2)
-                    r_l = liquid_residual(sb, tb, p) / (sb.geom.A_L * s_l)
-                    r_g = gas_residual(sb, tb, p) / (sb.geom.A_G * s_g)
-                    acc.add("phase_residual", 0.5 * (cauchy(r_l, cfg.residual_robust_scale)
-                                                     + cauchy(r_g, cfg.residual_robust_scale)), w_row[im][both])
-                only = ~both
-                if only.any():
-                    so = local_state(c[only], s.geom.frac[only], kind)
-                    to = type(tau)(*(t[only] for t in tau))
-                    base = None if ev.base is None else ev.base[only].detach()
-                    acc.add("combined_residual", self._combined(closure, so, to, base), w_row[im][only])
-            # --- (3): data misfit of the closure's equilibrium
-            data = sel & (has_h | has_p)
-            if data.any() and use_data:
-                sol = solve_separated(batch_conditions(batch, data), closure, kind, select=cfg.select,
-                                      n_grid=cfg.n_grid)
-                ok = sol.found
-                no_root += int((~ok).sum())
-                hh, hp = has_h[data] & ok, has_p[data] & ok
-                wd = w_row[data]
-                c_d = cfg.data_robust_scale
-                acc.add("data_holdup", cauchy((sol.holdup[hh] - H[data][hh]) / sh[data][hh], c_d), wd[hh])
-                acc.add("data_pgrad", cauchy((sol.pgrad.total[hp] - P[data][hp]) / sp[data][hp], c_d), wd[hp])
-                solved = ok & ~state_h[data]
-                if solved.any():
-                    s_det = local_state(batch_conditions(batch, data)[solved], sol.frac[solved].detach(), kind)
-                    reg_states.append((s_det, wd[solved], None))
-        # --- (4): observed pattern only
+            self._measured_state(closure, batch, kinds, sel, kind, need_smooth, acc, reg_states)
+            no_root += self._equilibrium(closure, batch, sel, kind, acc, reg_states)
         if cfg.weights["pattern"] > 0:
-            no_root += self._pattern(closure, batch, has_h | has_p, acc)
-        # --- (5): prior toward the baseline and smoothness, at the collected states
+            no_root += self._pattern(closure, batch, has_target, acc)
+        self._regularisers(closure, reg_states, need_smooth, acc)
+        terms = {k: acc.mean(k) for k in TERMS}
+        total = sum(cfg.weights[k] * terms[k] for k in TERMS)
+        # a zero-valued link to every trainable parameter, so that each (DDP) rank back-propagates
+        # through all parameters even when its batch has no row for some term
+        params = [p for p in closure.parameters() if p.requires_grad]
+        if params:
+            total = total + 0.0 * torch.stack([p.sum() for p in params]).sum()
+        return total, terms, {**acc.count, "no_root": no_root}
+
+    def _measured_state(self, closure, batch, kinds, sel, kind, need_smooth, acc, reg_states) -> None:
+        """(1) ``phase_residual`` (holdup and pgrad) and (2) ``combined_residual`` (holdup only) at
+        the measured states of configuration ``kind``. A measured state needs 0 < H < 1: a reading of
+        exactly 0 or 1 (clipped by the data reduction) keeps only its data-misfit terms."""
+        cfg, wt = self.settings, self.settings.weights
+        H, P = batch["holdup"], batch["pgrad"]
+        meas = sel & measured_state_rows(H)
+        if not meas.any():
+            return
+        im = meas.nonzero().squeeze(-1)  # row indices: one mask conversion for every column
+        c = batch_conditions(batch, im)
+        frac_meas = batch.get("frac_measured")  # precomputed measured_frac(batch), if given
+        frac = frac_from_holdup(H[im], kind) if frac_meas is None else frac_meas[im]
+        if frac_meas is not None and bool((kinds[im] != batch["kind"][im]).any()):
+            # rows whose kind was just predicted have no precomputed level
+            frac = torch.where(kinds[im] != batch["kind"][im], frac_from_holdup(H[im], kind).detach(), frac)
+        s = local_state(c, frac, kind)
+        w = batch["weight"][im]
+        use_res = wt["phase_residual"] > 0 or wt["combined_residual"] > 0
+        ev = closure.evaluate(s, input_grad=need_smooth) if use_res else None
+        reg_states.append((s, w, ev))
+        if not use_res:
+            return
+        tau = shear_stresses(s, ev.friction())
+        sh, sp = uncertainties(batch, cfg)
+        both = torch.isfinite(P[im])
+        if both.any():
+            p, sig = P[im][both], sp[im][both]
+            sb, tb = (s, tau) if bool(both.all()) else (local_state(c[both], s.geom.frac[both], kind),
+                                                         type(tau)(*(t[both] for t in tau)))
+            s_l = s_g = sig
+            if cfg.effective_variance:
+                d_l, d_g = holdup_sensitivity(closure, c[both], H[im][both], sh[im][both], kind, p)
+                s_l, s_g = torch.sqrt(sig**2 + d_l**2), torch.sqrt(sig**2 + d_g**2)
+            acc.add("phase_residual", phase_residual_term(sb, tb, p, s_l, s_g, cfg.residual_robust_scale), w[both])
+        only = ~both
+        if only.any():
+            so = local_state(c[only], s.geom.frac[only], kind)
+            to = type(tau)(*(t[only] for t in tau))
+            with torch.no_grad():
+                fb = closure.baseline(so) if ev.base is None else FrictionFactors(*ev.base[only].detach().unbind(dim=-1))
+                tau_base = shear_stresses(so, fb)
+            acc.add("combined_residual", combined_residual_term(so, to, tau_base), w[only])
+
+    def _equilibrium(self, closure, batch, sel, kind, acc, reg_states) -> int:
+        """(3) ``data_holdup`` and ``data_pgrad``: the closure's equilibrium against the measurements;
+        returns the count of rows without an equilibrium root (left out)."""
+        cfg, wt = self.settings, self.settings.weights
+        H, P = batch["holdup"], batch["pgrad"]
+        has_h, has_p = torch.isfinite(H), torch.isfinite(P)
+        data = sel & (has_h | has_p)
+        if not data.any() or not (wt["data_holdup"] > 0 or wt["data_pgrad"] > 0):
+            return 0
+        c = batch_conditions(batch, data)
+        sol = solve_separated(c, closure, kind, select=cfg.select, n_grid=cfg.n_grid)
+        ok = sol.found
+        hh, hp = has_h[data] & ok, has_p[data] & ok
+        wd = batch["weight"][data]
+        sh, sp = uncertainties(batch, cfg)
+        acc.add("data_holdup", data_misfit_term(sol.holdup[hh], H[data][hh], sh[data][hh], cfg.data_robust_scale), wd[hh])
+        acc.add("data_pgrad", data_misfit_term(sol.pgrad.total[hp], P[data][hp], sp[data][hp], cfg.data_robust_scale), wd[hp])
+        solved = ok & ~measured_state_rows(H)[data]
+        if solved.any():
+            reg_states.append((local_state(c[solved], sol.frac[solved].detach(), kind), wd[solved], None))
+        return int((~ok).sum())
+
+    def _regularisers(self, closure, reg_states, need_smooth, acc) -> None:
+        """(5) ``prior`` toward the baseline and ``smooth`` at the collected states."""
+        cfg, wt = self.settings, self.settings.weights
+        if wt["prior"] == 0 and not need_smooth:
+            return
         lam = cfg.prior_vector()
         for s, w, ev in reg_states:
-            if wt["prior"] == 0 and not need_smooth:
-                break
             if ev is None:
                 ev = closure.evaluate(s, input_grad=need_smooth)
             if wt["prior"] > 0:
@@ -406,33 +485,12 @@ class ClosureLoss(nn.Module):
                 else:
                     base = ev.base if ev.base is not None else torch.stack(tuple(closure.baseline(s)), dim=-1)
                     dlog = torch.log(ev.factors) - torch.log(base)
-                acc.add("prior", (lam * dlog**2).sum(dim=-1), w)
+                acc.add("prior", prior_term(dlog, lam), w)
             if need_smooth:
                 acc.add("smooth", smoothness(closure, s, ev), w)
-        terms = {k: acc.mean(k) for k in TERMS}
-        total = sum(cfg.weights[k] * terms[k] for k in TERMS)
-        # a zero-valued link to every trainable parameter, so that each (DDP) rank back-propagates
-        # through all parameters even when its batch has no row for some term
-        params = [p for p in closure.parameters() if p.requires_grad]
-        if params:
-            total = total + 0.0 * torch.stack([p.sum() for p in params]).sum()
-        counts = {**acc.count, "no_root": no_root}
-        return total, terms, counts
-
-    def _combined(self, closure: NeuralClosure, s: LocalState, tau, base: torch.Tensor | None = None) -> torch.Tensor:
-        """Squared combined residual over the baseline's term scale, ``(M,)``; ``base`` ``(M, 3)``:
-        the baseline factors at ``s`` if already evaluated."""
-        c, g = s.cond, s.geom
-        with torch.no_grad():
-            fb = closure.baseline(s) if base is None else FrictionFactors(*base.unbind(dim=-1))
-            tb = shear_stresses(s, fb)
-            scale = (tb.tau_wg * g.S_G / g.A_G).abs() + (tb.tau_wl * g.S_L / g.A_L).abs() \
-                + (tb.tau_i * g.S_i * (1 / g.A_L + 1 / g.A_G)).abs() \
-                + ((c.rhol - s.rho_core) * c.g * torch.sin(c.theta)).abs()
-        return (combined_residual(s, tau) / scale.clamp_min(1e-12)) ** 2
 
     def _pattern(self, closure: NeuralClosure, batch: dict, has_target: torch.Tensor, acc: _Acc) -> int:
-        """Kelvin-Helmholtz consistency of pattern-only rows; returns the count of rows without a root."""
+        """(4) ``pattern`` on the rows ``pattern_rows`` selects; returns the count of rows without a root."""
         pat = batch["pattern"]
         strat = torch.zeros_like(pat, dtype=torch.bool)
         for code in _STRAT_CODES:
@@ -451,7 +509,6 @@ class ClosureLoss(nn.Module):
         sol = solve_separated(c, closure, STRATIFIED, select=self.settings.select, n_grid=self.settings.n_grid)
         ok = sol.found
         m = sol.state.u_G / kh_gas_velocity(c, sol.state).clamp_min(1e-12) - 1
-        d = self.settings.pattern_margin
-        pen = (torch.where(strat[rows], torch.relu(m + d), torch.relu(d - m)) / self.settings.pattern_tolerance) ** 2
+        pen = pattern_term(m, strat[rows], self.settings.pattern_margin, self.settings.pattern_tolerance)
         acc.add("pattern", pen[ok], batch["weight"][rows][ok])
         return int((~ok).sum())
