@@ -5,7 +5,8 @@ Figures (our own layout and colours):
 * ``residuals.png`` - histograms of the normalised residuals r_L, r_G, r_F (top) and of the
   standardised residuals e (bottom, with the k-robust-sd flag limits), all rows vs suspect rows;
 * ``measured_vs_closure.png`` - measured against closure holdup and pgrad, suspects marked;
-* ``multiple_roots.png`` - number of stratified equilibrium roots over v_SG x v_SL per inclination.
+* ``multiple_roots.png`` - number of stratified equilibrium roots over v_SG x v_SL per inclination,
+  zoomed to where the equation has several roots.
 """
 from __future__ import annotations
 
@@ -134,29 +135,78 @@ def plot_measured_vs_closure(res: AuditResult, path: str | Path) -> Path:
     return _finish(plt, fig, f"Measurements against the closure's point solution - {res.closure_label}", path)
 
 
+def several_roots_window(roots: dict, margin_decades: float = 0.5) -> tuple[tuple[float, float], tuple[float, float]] | None:
+    """The v_SG and v_SL ranges [m/s] (common to all panels) that hold every grid cell with more
+    than one stratified root, widened by ``margin_decades`` each side and kept inside the grid;
+    None where no cell has several roots.
+
+    >>> g = np.logspace(-1, 1, 21)
+    >>> n = np.ones((21, 21), dtype=int); n[3, 10] = 3
+    >>> (gx, lx) = several_roots_window({1.0: {"vsg": g, "vsl": g, "n_roots": n}})[0:2]
+    >>> [round(float(np.log10(v)), 2) for v in (*gx, *lx)]
+    [-0.5, 0.5, -1.0, -0.2]
+    """
+    lo_g = lo_l = np.inf
+    hi_g = hi_l = -np.inf
+    full = None
+    for m in roots.values():
+        g, l_ = np.asarray(m["vsg"]), np.asarray(m["vsl"])
+        full = (g[0], g[-1], l_[0], l_[-1])
+        ii, jj = np.nonzero(np.asarray(m["n_roots"]) > 1)
+        if len(ii):
+            lo_g, hi_g = min(lo_g, g[jj].min()), max(hi_g, g[jj].max())
+            lo_l, hi_l = min(lo_l, l_[ii].min()), max(hi_l, l_[ii].max())
+    if full is None or not np.isfinite(lo_g):
+        return None
+    f = 10.0 ** margin_decades
+    return ((max(lo_g / f, full[0]), min(hi_g * f, full[1])), (max(lo_l / f, full[2]), min(hi_l * f, full[3])))
+
+
 def plot_root_map(health: HealthReport, path: str | Path) -> Path:
+    """Number of stratified roots over v_SG x v_SL per inclination, zoomed to where the equation has
+    several roots (the rest of the grid has one root or none, as the panel notes say)."""
     from matplotlib.colors import BoundaryNorm, ListedColormap
     from matplotlib.patches import Patch
+    from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
 
     plt = _plt()
     keys = list(health.roots)
     n = max(len(keys), 1)
-    fig, axes = plt.subplots(1, n, figsize=(4.3 * n + 0.5, 4.6), squeeze=False)
+    fig, axes = plt.subplots(1, n, figsize=(4.3 * n + 0.5, 4.9), squeeze=False)
     cmap, norm = ListedColormap(ROOT_COLOURS), BoundaryNorm([-0.5, 0.5, 1.5, 2.5, 3.5], 4)
+    window = several_roots_window(health.roots)
     for ax, k in zip(axes[0], keys):
         m = health.roots[k]
-        ax.pcolormesh(m["vsg"], m["vsl"], np.clip(m["n_roots"], 0, 3), cmap=cmap, norm=norm, shading="nearest")
+        counts = np.clip(np.asarray(m["n_roots"]), 0, 3)
+        ax.pcolormesh(m["vsg"], m["vsl"], counts, cmap=cmap, norm=norm, shading="nearest", edgecolors="face")
         ax.set_xscale("log")
         ax.set_yscale("log")
-        ax.set_title(f"inclination {k:+g} deg, D = {m['D'] * 1000:g} mm", fontsize=9)
+        if window is not None:
+            ax.set_xlim(*window[0])
+            ax.set_ylim(*window[1])
+        several = int((counts > 1).sum())
+        ax.set_title(f"inclination {k:+g} deg, D = {m['D'] * 1000:g} mm\n"
+                     f"{several} of {counts.size} grid cells with several roots", fontsize=9)
+        for axis, lim in ((ax.xaxis, ax.get_xlim()), (ax.yaxis, ax.get_ylim())):  # plain numbers, no crowding
+            wide = np.log10(lim[1] / lim[0]) > 2.2
+            axis.set_major_locator(LogLocator(base=10, subs=(1.0,) if wide else (1.0, 2.0, 5.0)))
+            axis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:g}"))
+            axis.set_minor_formatter(NullFormatter())
         ax.set_xlabel("superficial gas velocity v_SG [m/s]")
         ax.set_ylabel("superficial liquid velocity v_SL [m/s]")
     handles = [Patch(facecolor=c, edgecolor="#999999", label=l) for c, l in
                zip(ROOT_COLOURS, ("no root", "one root", "two roots (tangent)", "three roots"))]
-    fig.legend(handles=handles, loc="upper center", bbox_to_anchor=(0.5, 0.93), fontsize=8, frameon=False, ncol=4)
+    fig.legend(handles=handles, loc="upper center", bbox_to_anchor=(0.5, 0.92), fontsize=8, frameon=False, ncol=4)
+    m0 = health.roots[keys[0]] if keys else None
+    if m0 is not None:
+        grid = (f"grid v_SG {m0['vsg'][0]:.3g}-{m0['vsg'][-1]:.3g} m/s, v_SL {m0['vsl'][0]:.3g}-{m0['vsl'][-1]:.3g} m/s, "
+                f"{len(m0['vsg'])} x {len(m0['vsl'])} cells")
+        zoom = ("axes zoomed to where several roots occur (half a decade around them); outside, one root or none"
+                if window is not None else "one root or none everywhere: full grid shown")
+        fig.text(0.5, 0.845, f"{zoom}; {grid}", ha="center", fontsize=8, color="#444444")
     fig.suptitle(f"Stratified equilibrium roots of the combined momentum equation - {health.closure_label}",
                  fontsize=10)
-    fig.tight_layout(rect=(0, 0.06, 1, 0.86))
+    fig.tight_layout(rect=(0, 0.06, 1, 0.83))
     _foot(fig)
     fig.savefig(path, dpi=110)
     plt.close(fig)

@@ -27,6 +27,20 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     add_out_option(p)
 
 
+def _stage(text: str) -> float:
+    """One progress line for a stage that may take a while; returns its start time."""
+    import time
+
+    print(text + " ...", flush=True)
+    return time.perf_counter()
+
+
+def _done(t0: float) -> None:
+    import time
+
+    print(f"  done in {time.perf_counter() - t0:.0f} s", flush=True)
+
+
 def _closure(args: argparse.Namespace, cfg, overrides: list[str]):
     """``--closure``; the old ``--closure-config YAML`` (a closure config file) still works, with a note."""
     from omegaconf import OmegaConf
@@ -90,7 +104,10 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     (run_dir / "config.yaml").write_text(OmegaConf.to_yaml(cfg))
     if rejected is not None and len(rejected):
         rejected.to_csv(run_dir / "rejected.csv", index=False)
+    t0 = _stage(f"dataset audit: momentum-balance residuals at the {len(df)} measured states and the closure's "
+                f"point solution of each row ({closure.label})")
     res = audit_dataset(df, closure, settings, solver=dict(cfg.solver))
+    _done(t0)
     score = by_kind = None
     if truth is not None:
         flagged = set(res.flagged_run_ids())
@@ -98,8 +115,15 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
             flagged |= {str(r) for r in rejected["run_id"].dropna()}  # validation found them first
         score = score_against(flagged, truth["run_id"]).as_dict()
         by_kind = recall_by_kind(flagged, truth)
-    health = None if (args.no_health or not cfg.health) else audit_closure(closure, spec)
+    health = None
+    if not (args.no_health or not cfg.health):
+        t0 = _stage(f"closure health: positivity over the grid, smoothness sweeps of {spec.n_sweep} points, root maps of "
+                    f"{spec.n_map} x {spec.n_map} cells at {len(spec.roots_theta_deg)} inclinations, single-phase limits")
+        health = audit_closure(closure, spec)
+        _done(t0)
+    t0 = _stage("writing report.md, the tables and the figures")
     report = write_report(run_dir, res, health, score, by_kind, notes)
+    _done(t0)
     summary = {"audit": res.summary(), "score": score, "health": health.summary() if health else None,
                "closure": closure.describe(), "caution": CAUTION}
     write_json(run_dir / "summary.json", summary)
