@@ -306,7 +306,7 @@ def test_fine_tune_on_pattern_only_rows_moves_the_kh_boundary_toward_the_observa
 
     space = parse_design(KH_LOOP)
     truth = InterfaceTimesFour()
-    cfg = load_config("fit", ["stage_trainer.pretrain.max_epochs=3", "stage_trainer.finetune.max_epochs=40",
+    cfg = load_config("train", ["stage_trainer.pretrain.max_epochs=3", "stage_trainer.finetune.max_epochs=40",
                               "stage_trainer.finetune.patience=8", f"run_root={tmp_path}", "trainer.progress_bar=false"])
     pre = pretrain(cfg, synthesize_design(cfg, space, 400, 0).table, tmp_path / "pre")
     measured = ["holdup", "pgrad", "holdup_true", "pgrad_true"]
@@ -337,7 +337,7 @@ def test_band_accuracy_counts_and_band_figure(tmp_path):
     # band; relabelling a known set of rows lowers each band's count by exactly those rows.
     from closure_nn.data.closure_table import noisy_table
     from closure_nn.data.design_space import parse_design
-    from closure_nn.report.pattern_map import BANDS, band_accuracy, plot_pattern_bands
+    from closure_nn.report.pattern_bands import BANDS, band_accuracy, plot_pattern_bands
 
     design = parse_design({"name": "bands", "variables": {
         "vsl": {"law": "log_uniform", "low": 0.003, "high": 5.0}, "vsg": {"law": "log_uniform", "low": 0.1, "high": 40.0},

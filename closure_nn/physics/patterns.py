@@ -80,7 +80,6 @@ from .holdup_roots import SeparatedSolution
 from .local_state import LocalState
 from .transitions_unified import (
     barnea_annular_ok, barnea_dispersed, bst_annular_liquid_velocity, bubble_migration_allowed,
-    unified_codes_without_equilibrium,
 )
 from .vocabulary import (
     ANNULAR, BUBBLE, CODE, DISPERSED_BUBBLE, INTERMITTENT, SINGLE_PHASE_GAS, SINGLE_PHASE_LIQUID,
@@ -264,19 +263,25 @@ def _tbd_codes(cond: Conditions, theta_bubble: float | None) -> torch.Tensor:
     return torch.where(annular, CODE[ANNULAR], code)
 
 
-def _stratified_codes(cond: Conditions, strat: SeparatedSolution, s_wave: float) -> tuple[torch.Tensor, torch.Tensor]:
-    """(stable, code) at the closure's stratified equilibrium: KH-stable layers are stratified
-    smooth/wavy (TD76), or annular in downward pipes by BST82 (intermittent if that film is
-    blocked or unstable, Barnea 1986); module docstring, step 3."""
+def _on_rows(fn, cond: Conditions, rows: torch.Tensor) -> torch.Tensor:
+    """``fn(cond)`` (a bool criterion) evaluated only on the ``rows`` of the batch; False elsewhere."""
+    out = torch.zeros(rows.numel(), dtype=torch.bool)
+    idx = rows.reshape(-1).nonzero(as_tuple=True)[0]
+    if idx.numel():
+        out[idx] = fn(cond.map(lambda t: t.reshape(-1)[idx]))
+    return out.reshape(rows.shape)
+
+
+def _stratified_codes(cond: Conditions, strat: SeparatedSolution, s_wave: float) -> tuple[torch.Tensor, torch.Tensor, torch.Tensor]:
+    """(stable, thrown, code) at the closure's stratified equilibrium: KH-stable layers are
+    stratified smooth/wavy (TD76), or, where ``thrown``, annular in downward pipes by BST82 (the
+    caller checks that film by Barnea 1986); module docstring, step 3."""
     s = strat.state
     stable = strat.found & (s.u_G < kh_gas_velocity(cond, s))
     wavy = s.u_G >= wavy_gas_velocity(cond, s, s_wave)
     code = torch.where(wavy, CODE[STRATIFIED_WAVY], CODE[STRATIFIED_SMOOTH])
     thrown = (cond.theta < 0) & (s.u_L >= bst_annular_liquid_velocity(cond, s, strat.friction.f_wl))
-    if bool((stable & thrown).any()):
-        film = torch.where(barnea_annular_ok(cond), CODE[ANNULAR], CODE[INTERMITTENT])
-        code = torch.where(thrown, film, code)
-    return stable, code
+    return stable, thrown, code
 
 
 def _td_nonstratified_codes(cond: Conditions, strat: SeparatedSolution) -> torch.Tensor:
@@ -340,15 +345,21 @@ def classify(
         steep_up = cond.theta >= theta_steep
         near = strat.found & (cond.theta >= theta_down) & ~steep_up
         unified = ~steep_up & ~near  # steep downflow, or no equilibrium below theta_steep
-        stable, strat_code = _stratified_codes(cond, strat, s_wave)
+        stable, thrown, strat_code = _stratified_codes(cond, strat, s_wave)
+        stable = stable & ~steep_up
+        thrown = stable & thrown
+        # the equilibrium-free criteria only where they decide (the film equation costs a solve)
+        film_ok = _on_rows(barnea_annular_ok, cond, unified | thrown)
+        dispersed = _on_rows(barnea_dispersed, cond, unified)
         code = torch.full(cond.shape, CODE[INTERMITTENT], dtype=torch.int64)
         if bool(near.any()):
             code = torch.where(near, _td_nonstratified_codes(cond, strat), code)
-        if bool(unified.any()):
-            code = torch.where(unified, unified_codes_without_equilibrium(cond, CODE), code)
-        code = torch.where(stable & ~steep_up, strat_code, code)
-        if bool((unified & stable).any()):  # dispersed bubble overrides a stable layer (step 5)
-            code = torch.where(unified & barnea_dispersed(cond), CODE[DISPERSED_BUBBLE], code)
+        film_code = torch.where(film_ok, CODE[ANNULAR], CODE[INTERMITTENT])
+        code = torch.where(unified, film_code, code)
+        strat_code = torch.where(thrown, film_code, strat_code)
+        code = torch.where(stable, strat_code, code)
+        # dispersed bubble overrides a stable layer in the unified band (step 5)
+        code = torch.where(unified & dispersed, CODE[DISPERSED_BUBBLE], code)
         if bool(steep_up.any()):
             code = torch.where(steep_up, _tbd_codes(cond, theta_bubble), code)
         code = torch.where((cond.vsl <= 0) & (cond.vsg > 0), CODE[SINGLE_PHASE_GAS], code)

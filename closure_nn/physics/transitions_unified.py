@@ -252,10 +252,3 @@ def bst_annular_liquid_velocity(cond: Conditions, s: LocalState, f_wl: torch.Ten
     buoy = (1 - cond.rhog / cond.rhol).clamp_min(0.0)
     return torch.sqrt(cond.g * cond.D * buoy * cos / f_wl.clamp_min(_TINY))
 
-
-def unified_codes_without_equilibrium(cond: Conditions, codes: dict) -> torch.Tensor:
-    """Pattern codes from the equilibrium-free unified criteria: dispersed bubble (B86), else
-    annular if the film is stable and unblocked (B86), else intermittent. ``codes`` maps the
-    pattern names 'dispersed_bubble', 'annular', 'intermittent' to their integer codes."""
-    code = torch.where(barnea_annular_ok(cond), codes["annular"], codes["intermittent"])
-    return torch.where(barnea_dispersed(cond), codes["dispersed_bubble"], code).to(torch.int64)

@@ -12,10 +12,8 @@ data points marked by their observed pattern (shape and fill) with a dark edge a
 so a point stays visible inside the region of its own colour; the caution as a footnote. Colours are the project's
 pattern palette (:data:`closure_nn.report.line_plots.PATTERN_COLOURS`).
 
-:func:`band_accuracy` and :func:`plot_pattern_bands` score and draw observed patterns per
-inclination band (:data:`BANDS`): each observation solved at its own conditions by the point
-solver, and one panel per band with the closure's map at the band's median inclination and
-diameter behind the band's observations (ringed where the closure disagrees).
+Observed patterns per inclination band (scores and one panel per band):
+:mod:`closure_nn.report.pattern_bands`.
 """
 from __future__ import annotations
 
