@@ -197,7 +197,8 @@ def test_settings_search_is_seeded_and_chooses_inside_the_declared_space(invente
     from closure_nn.pipeline.envelope import envelope_design
     from closure_nn.pipeline.fit import validate_lab
 
-    cfg = load_config("fit", ["fit.synth.n=200", "stage_trainer.pretrain.max_epochs=1", "fit.search.trials=2"])
+    cfg = load_config("fit", ["fit.synth.n=200", "stage_trainer.pretrain.max_epochs=1", "fit.search.trials=2",
+                              "fit.search.processes=1"])
     OmegaConf.set_struct(cfg, False)
     cfg.fit.search.space = {"finetune.lr_factor": {"low": 0.3, "high": 2.0, "log": True},
                             "trainer.max_epochs": {"choices": [2, 3]}}

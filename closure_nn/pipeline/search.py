@@ -6,8 +6,9 @@ SAME pre-trained closure on the SAME fit rows with the trial's settings and is s
 development rows by the gain of :func:`closure_nn.training.scoring.no_harm` over the pre-trained
 start (the mean of the holdup-MAE and pgrad-error ratios, new over start, subtracted from 1):
 higher is better. The sampler is Optuna's TPE (Bergstra et al. 2011, NeurIPS, "Algorithms for
-hyper-parameter optimization") with a fixed seed, so the same table, seed and number of trials
-give the same trials. Test rows, if a user keeps any, are never seen: only the table given to
+hyper-parameter optimization") with a fixed seed, asked for ``fit.search.processes`` trials at a
+time that run side by side on as many CPU processes, so the same table, seed, number of trials and
+processes give the same trials. Test rows, if a user keeps any, are never seen: only the table given to
 ``fit`` is used, and of it only the development rows score a trial.
 
 The chosen settings then fine-tune the shipped closure (``fit`` runs the final fine-tune with
@@ -27,6 +28,7 @@ from omegaconf import DictConfig, OmegaConf
 
 from ..physics.checks import InputError
 from ..run_folder import write_json
+from ..training.processes import map_in_processes
 from ..training.run import StageResult
 from .stages import finetune, stage_config
 
@@ -40,6 +42,17 @@ def _suggest(trial, key: str, spec: dict):
     return trial.suggest_float(key, lo, hi, log=bool(spec.get("log", False)))
 
 
+def _trial(cfg: DictConfig, init, rows: pd.DataFrame, run_dir: Path, values: dict) -> dict:
+    """One trial: fine-tune ``init`` with ``values``; its development gain and measures."""
+    t0 = time.perf_counter()
+    ft = finetune(cfg, init, rows, run_dir, **values)
+    entry = ft.metrics["selection"]["members"][0]
+    dev = entry["trained"]
+    return {"gain": float(entry.get("gain", float("nan"))), "holdup_mae": dev["holdup_mae"],
+            "pgrad_within_20": dev["pgrad_within_20"], "pgrad_mape": dev["pgrad_mape"],
+            "seconds": time.perf_counter() - t0}
+
+
 def search_settings(cfg: DictConfig, pre: StageResult, rows: pd.DataFrame, run_dir: str | Path,
                     say: Callable[[str], None] = print) -> tuple[DictConfig, dict]:
     """Run ``fit.search.trials`` Optuna trials (module docstring); return the config with the chosen
@@ -51,31 +64,27 @@ def search_settings(cfg: DictConfig, pre: StageResult, rows: pd.DataFrame, run_d
     n = int(cfg.fit.search.trials)
     run = Path(run_dir)
     run.mkdir(parents=True, exist_ok=True)
-    trials: list[dict] = []
-
-    def objective(trial) -> float:
-        values = {k: _suggest(trial, k, spec) for k, spec in space.items()}
-        t0 = time.perf_counter()
-        ft = finetune(cfg, pre.closure, rows, run / f"trial_{trial.number:03d}", **values)
-        entry = ft.metrics["selection"]["members"][0]
-        gain = float(entry.get("gain", float("nan")))
-        dev = entry["trained"]
-        trials.append({"trial": trial.number, **values, "gain": gain, "holdup_mae": dev["holdup_mae"],
-                       "pgrad_within_20": dev["pgrad_within_20"], "pgrad_mape": dev["pgrad_mape"],
-                       "seconds": time.perf_counter() - t0})
-        say(f"trial {trial.number + 1}/{n}: gain {100 * gain:+.1f} % (holdup MAE {dev['holdup_mae']:.4f}, "
-            f"pgrad within +-20 % {100 * dev['pgrad_within_20']:.1f} %) with "
-            + ", ".join(f"{k}={_short(v)}" for k, v in values.items()))
-        return gain if gain == gain else -1e9
-
+    procs = max(1, int(cfg.fit.search.get("processes", 1)))
     sampler = optuna.samplers.TPESampler(seed=int(cfg.fit.search.seed))
     study = optuna.create_study(direction="maximize", sampler=sampler)
-    study.optimize(objective, n_trials=n)
+    trials: list[dict] = []
+    while len(trials) < n:
+        # a batch of trials side by side (ask/tell): the same trials for the same seed and processes
+        batch = [study.ask() for _ in range(min(procs, n - len(trials)))]
+        values = [{k: _suggest(t, k, spec) for k, spec in space.items()} for t in batch]
+        jobs = [(cfg, pre.closure, rows, run / f"trial_{t.number:03d}", v) for t, v in zip(batch, values)]
+        results = map_in_processes(_trial, jobs, procs, threads=int(cfg.trainer.num_threads))
+        for t, v, r in zip(batch, values, results):
+            study.tell(t, r["gain"] if r["gain"] == r["gain"] else -1e9)
+            trials.append({"trial": t.number, **v, **r})
+            say(f"trial {t.number + 1}/{n}: gain {100 * r['gain']:+.1f} % (holdup MAE {r['holdup_mae']:.4f}, "
+                f"pgrad within +-20 % {100 * r['pgrad_within_20']:.1f} %) with "
+                + ", ".join(f"{k}={_short(x)}" for k, x in v.items()))
     best = study.best_trial
     chosen = stage_config(cfg, cfg.stage, **best.params)
     table = pd.DataFrame(trials).sort_values("gain", ascending=False)
     table.to_csv(run / "trials.csv", index=False)
-    report = {"trials": n, "sampler": f"TPE, seed {int(cfg.fit.search.seed)}", "best_trial": best.number,
+    report = {"trials": n, "sampler": f"TPE, seed {int(cfg.fit.search.seed)}, {procs} trial(s) at a time", "best_trial": best.number,
               "best_gain": best.value, "chosen": best.params, "space": space,
               "how_measured": ("each trial fine-tunes the pre-trained closure on the fit rows; gain over the "
                                "pre-trained closure on the development rows (closure_nn.training.scoring.no_harm)"),
