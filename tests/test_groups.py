@@ -47,7 +47,7 @@ def test_weber_feature_is_smooth_and_not_flat_through_zero_slip():
     # u_G - u_L crosses zero along v_SG: the feature asinh(du sqrt(rho_G D / sigma)) has the same
     # slope on both sides, equal to the analytic d/dv_SG = sqrt(rho_G D / sigma) / (1 - H) (calculus;
     # u_G = v_SG / (1 - H)), and not zero: a feature flat at zero slip gave the closure-health audit
-    # an apparent jump in f_i along h/D (docs/evaluation_log.md, session 4)
+    # an apparent jump in f_i along h/D (docs/evaluation_log.md, 2026-12-02, "A signed slip feature")
     H = holdup_at(0.3)
     vsl = 0.5
     vsg0 = vsl / H * (1 - H)  # zero slip

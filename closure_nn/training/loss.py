@@ -69,7 +69,8 @@ Terms (each a weighted mean over the rows it applies to; weights in ``conf/loss/
     0.05, the margin itself. Before this scale existed the penalty was the bare
     :math:`[\max(\cdot, 0)]^2`, i.e. :math:`t = 1`: a wrong pattern then cost only
     :math:`\sim\delta^2 = 0.0025`, far less than one noisy holdup reading, and the term did
-    next to nothing; docs/evaluation_log.md, session 3).
+    next to nothing; docs/evaluation_log.md, 2026-12-02, "The pattern term and rows of unknown
+    pattern").
 ``prior``
     :math:`\sum_k \lambda_k (\ln f_k - \ln f_{k,\mathrm{base}})^2` at the measured (or, without
     holdup, solved) states: pulls the closure toward the mechanistic baseline where data are
