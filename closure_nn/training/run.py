@@ -148,7 +148,10 @@ def fed_rows(closure: NeuralClosure, t: dict, loss: LossSettings) -> dict[str, i
     over the whole table, no gradient); ``no_root`` counts rows without an equilibrium."""
     with torch.no_grad():
         _, _, counts = ClosureLoss(loss)(closure, t)
-    return {k: int(v) for k, v in counts.items()}
+    out = {k: int(v) for k, v in counts.items()}
+    if loss.weights.get("smooth", 0.0) > 0:
+        out["smooth"] = out["prior"]  # the same states; not evaluated without gradients
+    return out
 
 
 def check_fed(counts: dict[str, int], t: dict, loss: LossSettings, where: str, unknown_pattern: str) -> None:
