@@ -233,9 +233,15 @@ def config_epilog(command_or_config: str, width: int = WIDTH) -> str:
     name = CONFIG_OF.get(command_or_config, command_or_config)
     if not (CONF_DIR / f"{name}.yaml").exists():
         return ""
-    cfg = load_config(name)
+    note = None
+    try:
+        cfg = load_config(name)
+    except ValueError as exc:  # the shipped config fails its checks: still show the keys, and say so
+        cfg, note = _compose_unchecked(name), str(exc).splitlines()[0]
     groups, keys = main_keys(name)
     lines = [f"Config (conf/{name}.yaml; change any key with key=value on the command line):", ""]
+    if note:
+        lines += [f"  (note: {note})", ""]
     if groups:
         lines.append("  config groups (group=choice; choices are the files conf/<group>/*.yaml):")
         for g, (opt, comment) in groups.items():
@@ -252,6 +258,14 @@ def config_epilog(command_or_config: str, width: int = WIDTH) -> str:
         head = f"    {d.key} = {_value_text(cfg, d.key)}" + (f" [{unit}]" if unit else "")
         lines += _wrap(head, meaning, width)
     return "\n".join(lines)
+
+
+def _compose_unchecked(name: str):
+    """``conf/<name>.yaml`` composed by Hydra without the value checks of :func:`load_config`."""
+    from hydra import compose, initialize_config_dir
+
+    with initialize_config_dir(config_dir=str(CONF_DIR), version_base=None):
+        return compose(config_name=name)
 
 
 def _wrap(head: str, text: str, width: int, col: int = 40) -> list[str]:

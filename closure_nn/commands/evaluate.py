@@ -17,7 +17,7 @@ import math
 from ..caution import CAUTION
 from ..config import load_config, require_complete
 from ..physics.checks import InputError
-from .options import closure_path, deprecated
+from .options import add_out_option, closure_path, deprecated
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -26,6 +26,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
                         "training run folder (default: pre-train here)")
     p.add_argument("--bundle", default=None, help=argparse.SUPPRESS)  # old spelling of --closure
     p.add_argument("--lab", default=None, help="lab table (default: the experiment's, data_demo/lab_campaign.csv)")
+    add_out_option(p)
     p.add_argument("--show-config", action="store_true", help="print the composed config and exit")
 
 
@@ -56,13 +57,13 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
         print(OmegaConf.to_yaml(cfg))
         return 0
     require_complete(cfg, "evaluate")
-    from ..run_folder import make_run_dir
-    from ..pipeline.evaluate import load_lab, repo_path, run_evaluation  # imports Lightning
-
     spec = args.closure or args.bundle
     if spec == "baseline":
         raise InputError("evaluate --closure baseline: the fine-tune starts from a pre-trained neural closure; "
                          "give its PATH, or leave --closure out to pre-train here")
+    from ..run_folder import make_run_dir
+    from ..pipeline.evaluate import load_lab, repo_path, run_evaluation  # imports Lightning
+
     start = None
     if spec:
         if not repo_path(spec).exists():
@@ -71,7 +72,7 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     if args.bundle and not args.closure:
         deprecated(f"--bundle {args.bundle}", f"--closure {args.bundle}")
     lab = load_lab(args.lab or cfg.lab)
-    run_dir = make_run_dir("evaluate", root=cfg.run_root, name=cfg.run_name)
+    run_dir = make_run_dir("evaluate", root=args.out or cfg.run_root, name=cfg.run_name)
     from ..report.training_plots import evaluation_figures
 
     report = run_evaluation(cfg, lab, start, run_dir, figures=evaluation_figures)
