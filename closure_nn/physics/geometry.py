@@ -26,6 +26,7 @@ Units: D [m], areas [m2], perimeters [m].
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import torch
 
@@ -39,7 +40,9 @@ FRAC_MAX = {STRATIFIED: 1.0, ANNULAR: 0.5}
 
 @dataclass(frozen=True)
 class SeparatedGeometry:
-    """Areas [m2] and perimeters [m] of a separated-flow cross section (shape ``(*batch)``)."""
+    """Areas [m2] and perimeters [m] of a separated-flow cross section (shape ``(*batch)``).
+
+    Derived quantities (hydraulic diameters, area) are computed once per object and cached."""
 
     kind: str
     frac: torch.Tensor  # h/D (stratified) or delta/D (annular) [-]
@@ -50,21 +53,21 @@ class SeparatedGeometry:
     S_G: torch.Tensor
     S_i: torch.Tensor
 
-    @property
+    @cached_property
     def area(self) -> torch.Tensor:
         return self.A_L + self.A_G
 
-    @property
+    @cached_property
     def D_L(self) -> torch.Tensor:
         """Liquid hydraulic diameter 4 A_L / S_L [m]."""
         return 4 * self.A_L / self.S_L
 
-    @property
+    @cached_property
     def D_G(self) -> torch.Tensor:
         """Gas hydraulic diameter 4 A_G / (S_G + S_i) [m]."""
         return 4 * self.A_G / (self.S_G + self.S_i)
 
-    @property
+    @cached_property
     def liquid_fraction(self) -> torch.Tensor:
         """Share of the cross section occupied by the liquid layer or film, A_L / A [-]."""
         return self.A_L / self.area

@@ -172,8 +172,10 @@ def _turn_search(F: Callable, a: torch.Tensor, m: torch.Tensor, c: torch.Tensor,
 
     Golden-section search with parabolic steps (Brent 1973, *Algorithms for Minimization
     without Derivatives*, ch. 5), vectorised; ``F(idx, x)`` returns g for candidates ``idx``.
-    Stops a candidate as soon as g <= 0 (a sign change: the pair is bracketed by [a, u] and
-    [u, c]) or when c - a < ``_TURN_XTOL``.
+    A candidate stops as soon as g <= 0 (a sign change: the pair is bracketed by [a, u] and
+    [u, c]); or, after at least 4 steps, when the smallest g has settled (changed by < 1e-3 of
+    itself in the last step) and the parabola through the triple predicts no minimum below
+    0.9 of it (a true extremum, no root); or when c - a < ``_TURN_XTOL``.
 
     Returns ``(status, a, u, c)``: status 1 = pair bracketed at u, 0 = a true extremum with
     g > 0 (no root here), -1 = tangency or no convergence (unresolved).
@@ -186,10 +188,10 @@ def _turn_search(F: Callable, a: torch.Tensor, m: torch.Tensor, c: torch.Tensor,
     act = torch.arange(n)
     for k in range(_TURN_MAX_ITER):
         A, M, C, GA, GM, GC = a[act], m[act], c[act], ga[act], gm[act], gc[act]
-        # vertex of the parabola through the triple
-        p = (M - A) ** 2 * (GM - GC) - (M - C) ** 2 * (GM - GA)
-        q = (M - A) * (GM - GC) - (M - C) * (GM - GA)
-        u = M - 0.5 * p / q
+        # vertex of the parabola through the triple: P(x) = GA + d1 (x - A) + q (x - A)(x - M)
+        d1 = (GM - GA) / (M - A)
+        q = ((GC - GM) / (C - M) - d1) / (C - A)
+        u = 0.5 * (A + M) - 0.5 * d1 / q
         width = C - A
         right = (C - M) > (M - A)
         golden = torch.where(right, M + _INV_PHI2 * (C - M), M - _INV_PHI2 * (M - A))
@@ -208,12 +210,18 @@ def _turn_search(F: Callable, a: torch.Tensor, m: torch.Tensor, c: torch.Tensor,
         for full, part in ((a, nA), (m, nM), (c, nC), (ga, nGA), (gm, nGM), (gc, nGC)):
             full[act] = torch.where(hit, full[act], part)
         u_found[act] = torch.where(hit, u, u_found[act])
-        idx_hit = act[hit]
-        status[idx_hit] = 1
-        done = hit | ((nC - nA) < _TURN_XTOL)
-        settled = act[~hit & done]
-        status[settled] = torch.where(gm[settled] > _TANGENT_RTOL * g0[settled], 0, -1)
-        act = act[~done]
+        status[act[hit]] = 1
+        # a settled extremum clearly above zero: no root pair here
+        d1 = (nGM - nGA) / (nM - nA)
+        q = ((nGC - nGM) / (nC - nM) - d1) / (nC - nA)
+        p_min = nGA - (d1 - q * (nM - nA)) ** 2 / (4 * q)
+        settled = ((k >= 3) & (GM - nGM <= 1e-3 * nGM) & (p_min >= 0.9 * nGM)
+                   & (nGM > _TANGENT_RTOL * g0[act]))
+        status[act[~hit & settled]] = 0
+        narrow = ~hit & ~settled & ((nC - nA) < _TURN_XTOL)
+        idx = act[narrow]
+        status[idx] = torch.where(gm[idx] > _TANGENT_RTOL * g0[idx], 0, -1)
+        act = act[~(hit | settled | narrow)]
         if act.numel() == 0:
             break
     return status, a, u_found, c
@@ -284,14 +292,15 @@ def find_roots(
         B = cond.shape[0]
         grid = frac_grid(kind, n_grid)
         E = torch.as_tensor(entrainment, dtype=torch.float64).expand(cond.shape)
-        parts = [_roots_chunk(cond[i:i + chunk], E[i:i + chunk], closure, kind, grid, xtol, max_iter)
-                 for i in range(0, B, chunk)]
-        if len(parts) == 1:
-            return parts[0]
-        if not parts:
-            return RootSet(torch.empty(0, MAX_ROOTS, dtype=torch.float64), torch.empty(0, dtype=torch.int64),
-                           torch.empty(0, dtype=torch.bool))
-        return RootSet(*(torch.cat([getattr(p, k) for p in parts]) for k in ("roots", "n_roots", "unresolved")))
+        if B <= chunk:
+            return _roots_chunk(cond, E, closure, kind, grid, xtol, max_iter)
+        out = RootSet(torch.empty(B, MAX_ROOTS, dtype=torch.float64), torch.empty(B, dtype=torch.int64),
+                      torch.empty(B, dtype=torch.bool))
+        for i in range(0, B, chunk):
+            part = _roots_chunk(cond[i:i + chunk], E[i:i + chunk], closure, kind, grid, xtol, max_iter)
+            for k in ("roots", "n_roots", "unresolved"):
+                getattr(out, k)[i:i + chunk] = getattr(part, k)
+        return out
 
 
 def find_all_roots(

@@ -18,6 +18,7 @@ Phase Reynolds numbers on hydraulic diameters (Taitel & Dukler 1976, eqs. 5-6):
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import torch
 
@@ -42,12 +43,12 @@ class LocalState:
     def kind(self) -> str:
         return self.geom.kind
 
-    @property
+    @cached_property
     def Re_L(self) -> torch.Tensor:
         """Liquid Reynolds number on D_L [-]."""
         return self.cond.rhol * self.u_L * self.geom.D_L / self.cond.mul
 
-    @property
+    @cached_property
     def Re_G(self) -> torch.Tensor:
         """Gas (core) Reynolds number on D_G [-]."""
         return self.rho_core * self.u_G * self.geom.D_G / self.cond.mug
@@ -70,11 +71,14 @@ def local_state(cond: Conditions, frac: torch.Tensor, kind: str, entrainment: to
     geom = separated(kind, frac, cond.D)
     A = cond.area
     E = torch.as_tensor(entrainment, dtype=torch.float64) * (1.0 if kind == ANNULAR else 0.0)
-    E = E * torch.ones_like(frac)
+    # terms that do not depend on frac are computed on the conditions' shape, once per state,
+    # and broadcast (expanded views) to the shape of the trial levels
+    shape = torch.broadcast_shapes(frac.shape, cond.vsl.shape, E.shape)
     q_e = E * cond.vsl  # entrained liquid flux, m/s superficial
-    u_L = (cond.vsl - q_e) * A / geom.A_L
     core_flux = cond.vsg + q_e
-    u_G = core_flux * A / geom.A_G
     rho_core = (cond.rhog * cond.vsg + cond.rhol * q_e) / core_flux.clamp_min(_TINY)
     rho_core = torch.where(core_flux > 0, rho_core, cond.rhog * torch.ones_like(rho_core))
-    return LocalState(cond=cond, geom=geom, entrainment=E, u_L=u_L, u_G=u_G, rho_core=rho_core)
+    u_L = (cond.vsl - q_e) * A / geom.A_L
+    u_G = core_flux * A / geom.A_G
+    E = E.expand(torch.broadcast_shapes(E.shape, frac.shape))
+    return LocalState(cond=cond, geom=geom, entrainment=E, u_L=u_L, u_G=u_G, rho_core=rho_core.expand(shape))

@@ -52,6 +52,8 @@ FLAG_TEXT = {
     FLAG_ROOT_PAIR_UNRESOLVED: "a holdup root pair may be unresolved (tangency)",
 }
 _EDGE = 1e-9
+#: rows per chunk of :func:`solve_points` (peak memory of a 1e6-row solve, benchmarks/README.md)
+POINT_CHUNK = 8192
 
 
 @dataclass(frozen=True)
@@ -110,7 +112,7 @@ def _merge(mask: torch.Tensor, a: PressureGradient, b: PressureGradient) -> Pres
 
 def solve_points(
     cond: Conditions, closure, select: str = "thinnest", entrainment: float | str = 0.0,
-    n_grid: int = 40, s_wave: float = 0.01,
+    n_grid: int = 40, s_wave: float = 0.01, chunk: int = POINT_CHUNK,
 ) -> PointResult:
     """Solve a flat batch ``(B,)`` of conditions with ``closure`` (see module docstring).
 
@@ -120,6 +122,7 @@ def solve_points(
     entrainment : entrained liquid fraction E [-] for annular rows, or 'ishii_mishima'.
     n_grid : bracketing grid size of the holdup root finder.
     s_wave : Jeffreys sheltering coefficient of the smooth/wavy transition (Taitel & Dukler 1976).
+    chunk : rows solved at a time (bounds memory for any batch size; results do not depend on it).
 
     >>> from closure_nn.physics.conditions import make_conditions
     >>> from closure_nn.closures.baseline import BaselineClosure
@@ -129,6 +132,36 @@ def solve_points(
     """
     if len(cond.shape) != 1:
         raise ValueError(f"solve_points expects a flat batch (B,), got shape {tuple(cond.shape)}")
+    B = cond.shape[0]
+    if B <= chunk:
+        return _solve_points_chunk(cond, closure, select, entrainment, n_grid, s_wave)
+    per_row = isinstance(entrainment, torch.Tensor) and entrainment.dim() > 0
+    part = lambda i: _solve_points_chunk(  # noqa: E731
+        cond[i:i + chunk], closure, select, entrainment[i:i + chunk] if per_row else entrainment, n_grid, s_wave)
+    if torch.is_grad_enabled():  # keep the autograd graph of every chunk
+        parts = [part(i) for i in range(0, B, chunk)]
+        cat = lambda name: torch.cat([getattr(p, name) for p in parts])  # noqa: E731
+        pg = PressureGradient(*(torch.cat([p.pgrad[k] for p in parts]) for k in range(3)))
+        return PointResult(holdup=cat("holdup"), pgrad=pg, pattern=cat("pattern"), n_roots=cat("n_roots"),
+                           roots=cat("roots"), frac=cat("frac"), separated=cat("separated"), flags=cat("flags"))
+    # no graph: fill preallocated outputs (peak memory = the outputs + one chunk)
+    first = part(0)
+    full = lambda t: t.new_empty((B, *t.shape[1:]))  # noqa: E731
+    names = ("holdup", "pattern", "n_roots", "roots", "frac", "separated", "flags")
+    out = {k: full(getattr(first, k)) for k in names}
+    pg = PressureGradient(*(full(t) for t in first.pgrad))
+    for i in range(0, B, chunk):
+        r = first if i == 0 else part(i)
+        for k in names:
+            out[k][i:i + chunk] = getattr(r, k)
+        for x, y in zip(pg, r.pgrad):
+            x[i:i + chunk] = y
+    return PointResult(pgrad=pg, **out)
+
+
+def _solve_points_chunk(cond: Conditions, closure, select: str, entrainment: float | str, n_grid: int,
+                        s_wave: float) -> PointResult:
+    """:func:`solve_points` for one chunk of rows."""
     gas_only = cond.vsl <= 0
     liq_only = (cond.vsg <= 0) & ~gas_only
     single = gas_only | liq_only
