@@ -189,6 +189,10 @@ def test_audit_and_map_old_spellings_work_with_one_note(closures, tmp_path, caps
     assert main(["audit", "--self-check", "--no-health", "--closure", b, "--out", str(tmp_path / "a")]) == 0
     cap2 = capsys.readouterr()
     assert cap2.err == "" and "dataset audit:" in cap2.out
+    rows = pd.read_csv(next(p for p in (tmp_path / "a").iterdir() if (p / "audit_rows.csv").exists()) / "audit_rows.csv")
+    assert {"run_id", "vsl [m/s]", "pgrad [Pa/m]", "pgrad_pred [Pa/m]", "theta_deg", "suspect"} <= set(rows.columns)
+    for col in rows.columns:
+        _unit_round_trip(col)
     count = [ln for ln in cap.out.splitlines() if "rows audited" in ln]
     assert count == [ln for ln in cap2.out.splitlines() if "rows audited" in ln] and load_closure(b).label in count[0]
     assert main(["map", "--learned", b, "n=6", "--out", str(tmp_path / "m")]) == 0

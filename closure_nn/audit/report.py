@@ -16,6 +16,7 @@ import numpy as np
 import pandas as pd
 
 from ..caution import CAUTION
+from ..data.result_tables import write_result_csv
 from .dataset import CHECKS, AuditResult
 from .health import HealthReport
 
@@ -222,8 +223,8 @@ def write_report(run_dir: str | Path, audit: AuditResult | None = None, health: 
     lines += [f"- {n}" for n in (notes or [])]
     if audit is not None:
         t = audit.table
-        audit.table.to_csv(d / "audit_rows.csv", index=False)
-        audit.suspects().to_csv(d / "suspects.csv", index=False)
+        write_result_csv(audit.table, d / "audit_rows.csv")  # plain tables, the SI unit in each header
+        write_result_csv(audit.suspects(), d / "suspects.csv")
         plot_residuals(audit, d / "residuals.png")
         plot_measured_vs_closure(audit, d / "measured_vs_closure.png")
         lines += ["", f"## Dataset audit against {audit.closure_label}", "",

@@ -29,8 +29,8 @@ RESULT_UNITS: dict[str, tuple[str, str]] = {
 }
 #: prefixes looked through (``calc_pgrad`` has the unit of ``pgrad``)
 PREFIXES = ("calc_",)
-#: suffixes of ensemble-band columns (``p_min`` has the unit of ``p``)
-BAND_SUFFIXES = ("_min", "_max", "_mean", "_sd", "_lo2sd", "_hi2sd")
+#: qualifiers of ensemble-band columns (``p_min`` has the unit of ``p``)
+BAND_SUFFIXES = ("min", "max", "mean", "sd", "lo2sd", "hi2sd")
 #: columns that stay bare whatever the glossary says (counts and codes, not quantities)
 BARE = frozenset({"n_roots", "flags", "station"})
 
@@ -40,6 +40,8 @@ def unit_of(column: str) -> tuple[str, str] | None:
 
     >>> unit_of("calc_pgrad"), unit_of("p_min"), unit_of("pattern"), unit_of("calc_n_roots")
     (('Pa/m', 'pressure gradient'), ('Pa', 'pressure'), None, None)
+    >>> unit_of("pgrad_learned"), unit_of("holdup_lo2sd"), unit_of("theta_deg"), unit_of("pattern_learned")
+    (('Pa/m', 'pressure gradient'), ('-', 'fraction'), None, None)
     """
     name = str(column)
     for pre in PREFIXES:
@@ -52,10 +54,24 @@ def unit_of(column: str) -> tuple[str, str] | None:
     spec = COLUMN.get(name)
     if spec is not None and spec.unit and spec.dtype == "float":
         return spec.unit, spec.dimension
-    for suf in BAND_SUFFIXES:
-        if name.endswith(suf) and name[: -len(suf)] != name:
-            return unit_of(name[: -len(suf)])
+    # '<quantity>_<qualifier>': an ensemble statistic (p_min, holdup_sd) or a model's prediction
+    # (pgrad_learned) has the quantity's unit; a qualifier that is itself a unit (theta_deg) does not
+    head, _, qualifier = name.rpartition("_")
+    while head:
+        if qualifier in BAND_SUFFIXES or not _is_unit_word(qualifier):
+            found = unit_of(head) if head in COLUMN or head in RESULT_UNITS else None
+            if found is not None:
+                return found
+        head, _, rest = head.rpartition("_")
+        qualifier = f"{rest}_{qualifier}"
     return None
+
+
+def _is_unit_word(word: str) -> bool:
+    """True for a unit spelling (``deg``, ``bar``, ``mm``...) of :mod:`closure_nn.data.units`."""
+    from .units import ALIASES, UNITS
+
+    return word in ALIASES or any(word in units for units in UNITS.values())
 
 
 def with_unit_headers(df: pd.DataFrame) -> pd.DataFrame:
