@@ -125,7 +125,7 @@ def test_results_do_not_depend_on_the_chunk_size():
     cond = _conditions(snap)
     closure = CLOSURES["churchill_ah"]
     a = find_roots(cond, closure, chunk=4096)
-    b = find_roots(cond, closure, chunk=97)
+    b = find_roots(cond, closure, chunk=97, grid_chunk=13)
     assert torch.equal(a.n_roots, b.n_roots) and torch.equal(a.unresolved, b.unresolved)
     np.testing.assert_allclose(a.roots.numpy(), b.roots.numpy(), atol=1e-11, rtol=0, equal_nan=True)
 

@@ -6,8 +6,8 @@ annular flow (frac_max = 1/2).
 
 Method
 ------
-The batch is solved in chunks of ``chunk`` states (memory bounded for any batch size); within
-a chunk:
+The batch is solved in chunks of ``chunk`` states, the bracketing grid in smaller chunks of
+``grid_chunk`` states (memory bounded for any batch size); within a chunk:
 
 1. Bracket: evaluate F on a fixed grid of ``n_grid`` points (log-spaced near the wall, cosine-
    clustered towards both ends) for all states at once; each sign change is a bracket.
@@ -54,9 +54,11 @@ from .momentum import FrictionFactors, PressureGradient, Stresses, combined_resi
 
 SELECT_RULES = ("thinnest", "thickest")
 MAX_ROOTS = 3
-#: states per chunk of the root finder: large enough to amortise per-operation overhead, small
-#: enough that a chunk's (chunk, n_grid) temporaries stay in cache (benchmarks/README.md)
-DEFAULT_CHUNK = 4096
+#: states per chunk of the root finder (turn search and refinement vectorised over a chunk)
+DEFAULT_CHUNK = 65536
+#: states per chunk of the bracketing grid: a chunk's (GRID_CHUNK, n_grid) temporaries stay in
+#: cache (benchmarks/README.md)
+GRID_CHUNK = 4096
 _TURN_XTOL = 1e-11  # search tolerance in frac for the extremum of a turn
 _TURN_MAX_ITER = 80
 _TANGENT_RTOL = 1e-9  # extremum within this fraction of its neighbours' |F| of zero: unresolved
@@ -114,7 +116,7 @@ def residual_fn(cond: Conditions, closure: Callable, kind: str, entrainment) -> 
 
 
 def _subset_fn(cond: Conditions, E: torch.Tensor, closure: Callable, kind: str) -> Callable:
-    """F(idx, frac): the residual of states ``idx`` (LongTensor) of a flat batch at ``frac``."""
+    """F(idx, frac): the residual of states ``idx`` (LongTensor) of a flat batch ``(n,)`` at ``frac``."""
 
     def F(idx: torch.Tensor, frac: torch.Tensor) -> torch.Tensor:
         return residual_fn(cond[idx], closure, kind, E[idx])(frac)
@@ -227,41 +229,58 @@ def _turn_search(F: Callable, a: torch.Tensor, m: torch.Tensor, c: torch.Tensor,
     return status, a, u_found, c
 
 
-def _roots_chunk(cond: Conditions, E: torch.Tensor, closure: Callable, kind: str, grid: torch.Tensor,
-                 xtol: float, max_iter: int) -> RootSet:
-    """:func:`find_roots` for one chunk (flat batch ``(b,)``), under ``torch.no_grad``."""
-    b, n = cond.shape[0], grid.numel()
+def _grid_pass(cond: Conditions, E: torch.Tensor, closure: Callable, kind: str, grid: torch.Tensor):
+    """Steps 1-2 setup for a flat batch ``(b,)``: sign-change brackets and turn candidates.
+
+    Returns ``(rows, lo, hi, flo, fhi)`` of the brackets and ``(t_rows, j)`` of the turns (grid
+    index of the middle point) with ``(Fa, Fm, Fc)`` at grid points j-1, j, j+1.
+    """
+    b = cond.shape[0]
     Fg = residual_fn(cond.unsqueeze(-1), closure, kind, E.unsqueeze(-1))(grid.expand(b, -1))
     sgn = torch.signbit(Fg)
     valid = torch.isfinite(Fg)
     change = (sgn[:, 1:] != sgn[:, :-1]) & valid[:, 1:] & valid[:, :-1]
     rows, cells = change.nonzero(as_tuple=True)
-    lo, hi = grid[cells], grid[cells + 1]
-    flo, fhi = Fg[rows, cells], Fg[rows, cells + 1]
-    n_roots = change.sum(dim=1)
-    unresolved = torch.zeros(b, dtype=torch.bool)
-
     # sign-preserving local minima of |F| on the grid: a root pair may sit between the neighbours
     absF = Fg.abs()
     turn = ((sgn[:, 1:-1] == sgn[:, :-2]) & (sgn[:, 1:-1] == sgn[:, 2:]) & valid[:, :-2] & valid[:, 1:-1]
             & valid[:, 2:] & (absF[:, 1:-1] < absF[:, :-2]) & (absF[:, 1:-1] <= absF[:, 2:]))
     t_rows, t_j = turn.nonzero(as_tuple=True)
+    j = t_j + 1
+    return ((rows, grid[cells], grid[cells + 1], Fg[rows, cells], Fg[rows, cells + 1]),
+            (t_rows, j, Fg[t_rows, j - 1], Fg[t_rows, j], Fg[t_rows, j + 1]))
+
+
+def _roots_batch(cond: Conditions, E: torch.Tensor, closure: Callable, kind: str, grid: torch.Tensor,
+                 xtol: float, max_iter: int, grid_chunk: int) -> RootSet:
+    """:func:`find_roots` for one batch ``(b,)``, under ``torch.no_grad``: the grid pass in
+    chunks of ``grid_chunk`` states, then the turn search and refinement on the whole batch."""
+    b = cond.shape[0]
+    br, tu = [], []
+    for i in range(0, b, grid_chunk):
+        x, y = _grid_pass(cond[i:i + grid_chunk], E[i:i + grid_chunk], closure, kind, grid)
+        br.append((x[0] + i, *x[1:]))
+        tu.append((y[0] + i, *y[1:]))
+    rows, lo, hi, flo, fhi = (torch.cat(v) for v in zip(*br))
+    t_rows, j, Fa, Fm, Fc = (torch.cat(v) for v in zip(*tu))
+    n_roots = torch.bincount(rows, minlength=b)
+    unresolved = torch.zeros(b, dtype=torch.bool)
+
     if t_rows.numel():
-        j = t_j + 1
-        s = torch.where(sgn[t_rows, j], -1.0, 1.0).to(Fg.dtype)
-        F_sub = _subset_fn(cond, E, closure, kind)
-        g = lambda idx, x: s[idx] * F_sub(t_rows[idx], x)  # noqa: E731
-        status, pa, pu, pc = _turn_search(g, grid[j - 1], grid[j], grid[j + 1],
-                                          s * Fg[t_rows, j - 1], s * Fg[t_rows, j], s * Fg[t_rows, j + 1])
+        s = torch.where(torch.signbit(Fm), -1.0, 1.0).to(Fm.dtype)
+        F_sub = _subset_fn(cond[t_rows], E[t_rows], closure, kind)
+        status, pa, pu, pc = _turn_search(lambda idx, x: s[idx] * F_sub(idx, x), grid[j - 1], grid[j], grid[j + 1],
+                                          s * Fa, s * Fm, s * Fc)
         pair = status == 1
         if bool(pair.any()):
-            pr, ps = t_rows[pair], s[pair]
-            fu = F_sub(pr, pu[pair])
+            pi = pair.nonzero(as_tuple=True)[0]
+            pr = t_rows[pi]
+            fu = F_sub(pi, pu[pi])
             rows = torch.cat([rows, pr, pr])
-            lo = torch.cat([lo, pa[pair], pu[pair]])
-            hi = torch.cat([hi, pu[pair], pc[pair]])
-            flo = torch.cat([flo, F_sub(pr, pa[pair]), fu])
-            fhi = torch.cat([fhi, fu, F_sub(pr, pc[pair])])
+            lo = torch.cat([lo, pa[pi], pu[pi]])
+            hi = torch.cat([hi, pu[pi], pc[pi]])
+            flo = torch.cat([flo, F_sub(pi, pa[pi]), fu])
+            fhi = torch.cat([fhi, fu, F_sub(pi, pc[pi])])
             n_roots = n_roots + 2 * torch.bincount(pr, minlength=b)
         unresolved[t_rows[status < 0]] = True
 
@@ -269,35 +288,38 @@ def _roots_chunk(cond: Conditions, E: torch.Tensor, closure: Callable, kind: str
     order = torch.sort(lo, stable=True).indices
     order = order[torch.sort(rows[order], stable=True).indices]
     rows, lo, hi, flo, fhi = rows[order], lo[order], hi[order], flo[order], fhi[order]
-    start = torch.cumsum(torch.bincount(rows, minlength=b), 0) - torch.bincount(rows, minlength=b)
-    rank = torch.arange(rows.numel()) - start[rows]
+    counts = torch.bincount(rows, minlength=b)
+    rank = torch.arange(rows.numel()) - (torch.cumsum(counts, 0) - counts)[rows]
     keep = rank < MAX_ROOTS
     rows, rank, lo, hi, flo, fhi = rows[keep], rank[keep], lo[keep], hi[keep], flo[keep], fhi[keep]
     roots = torch.full((b, MAX_ROOTS), float("nan"), dtype=torch.float64)
     if rows.numel():
-        F_br = _subset_fn(cond, E, closure, kind)
-        roots[rows, rank] = _chandrupatla(lambda idx, x: F_br(rows[idx], x), lo, hi, flo, fhi, xtol, max_iter)
+        F_br = _subset_fn(cond[rows], E[rows], closure, kind)
+        roots[rows, rank] = _chandrupatla(F_br, lo, hi, flo, fhi, xtol, max_iter)
     return RootSet(roots=roots, n_roots=n_roots, unresolved=unresolved)
 
 
 def find_roots(
     cond: Conditions, closure: Callable, kind: str = STRATIFIED, entrainment=0.0,
     n_grid: int = 40, xtol: float = 1e-12, max_iter: int = 100, chunk: int = DEFAULT_CHUNK,
+    grid_chunk: int = GRID_CHUNK,
 ) -> RootSet:
-    """All roots of a flat batch ``(B,)`` in chunks of ``chunk`` states (see module docstring).
+    """All roots of a flat batch ``(B,)`` (see module docstring).
 
-    No gradients are tracked. Memory grows with ``chunk * n_grid``, not with B.
+    States are solved ``chunk`` at a time (turn search and refinement vectorised over a chunk),
+    the bracketing grid ``grid_chunk`` states at a time, so memory is bounded for any B.
+    Results do not depend on either size. No gradients are tracked.
     """
     with torch.no_grad():
         B = cond.shape[0]
         grid = frac_grid(kind, n_grid)
         E = torch.as_tensor(entrainment, dtype=torch.float64).expand(cond.shape)
         if B <= chunk:
-            return _roots_chunk(cond, E, closure, kind, grid, xtol, max_iter)
+            return _roots_batch(cond, E, closure, kind, grid, xtol, max_iter, grid_chunk)
         out = RootSet(torch.empty(B, MAX_ROOTS, dtype=torch.float64), torch.empty(B, dtype=torch.int64),
                       torch.empty(B, dtype=torch.bool))
         for i in range(0, B, chunk):
-            part = _roots_chunk(cond[i:i + chunk], E[i:i + chunk], closure, kind, grid, xtol, max_iter)
+            part = _roots_batch(cond[i:i + chunk], E[i:i + chunk], closure, kind, grid, xtol, max_iter, grid_chunk)
             for k in ("roots", "n_roots", "unresolved"):
                 getattr(out, k)[i:i + chunk] = getattr(part, k)
         return out

@@ -53,7 +53,7 @@ FLAG_TEXT = {
 }
 _EDGE = 1e-9
 #: rows per chunk of :func:`solve_points` (peak memory of a 1e6-row solve, benchmarks/README.md)
-POINT_CHUNK = 8192
+POINT_CHUNK = 65536
 
 
 @dataclass(frozen=True)
