@@ -91,6 +91,11 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
         if name in closures:
             raise InputError(f"--closure {item!r}: the name {name!r} is already used; write NAME=PATH")
         closures[name] = _closure_from_spec(spec, cfg)
+    from ..closures.baseline import BaselineClosure
+
+    has_base = any(isinstance(c, BaselineClosure) for c in closures.values())
+    _say(f"closures side by side: {', '.join(closures)}" +
+         ("" if has_base else " (add --closure baseline to compare with the baseline)"))
     members = []
     for d in list(cfg.get("ensemble") or []) + list(args.ensemble):
         members += load_members(str(d))
