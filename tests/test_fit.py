@@ -114,7 +114,7 @@ def test_fit_writes_bundle_report_figure_and_settings(fitted):
               "design_space.json", "development_predictions.csv"):
         assert (fitted / f).is_file() and (fitted / f).stat().st_size > 0, f
     report = json.loads((fitted / "report.json").read_text())
-    assert (fitted / "finetune" / "bundle" / "bundle.json").is_file()
+    assert (fitted / "bundle" / "bundle.json").is_file() and report["bundle"] == str(fitted / "bundle")
     for name in ("baseline", "pretrained", "finetuned", "shipped"):
         assert set(report["scores"][name]) >= {"holdup_mae", "holdup_mape", "pgrad_mape", "pgrad_within_20",
                                                "pattern_accuracy"}

@@ -57,3 +57,19 @@ def test_score_table_measures_by_hand():
     assert abs(s["pgrad_mape"] - 100 * (0.3 + 0.1) / 2) < 1e-9  # |pgrad| < 1 Pa/m left out
     assert s["pgrad_within_20"] == 0.5 and s["n_pgrad"] == 2
     assert s["pattern_accuracy"] == 0.5  # 'slug' is not our label: counted as observed, predicted otherwise
+
+
+def test_pattern_observations_alone_can_adopt_a_closure():
+    """A table of pattern observations only: the misclassified share is the measure (stratified
+    smooth and wavy counted as one)."""
+    r = np.random.default_rng(3)
+    obs = np.where(r.random(120) < 0.5, "stratified_wavy", "intermittent").astype(object)
+    df = pd.DataFrame({"holdup": np.nan, "pgrad": np.nan, "pattern": obs})
+    flip = lambda share: np.where(r.random(120) < share, np.where(obs == "intermittent", "stratified_smooth",  # noqa: E731
+                                                                  "intermittent"), obs).astype(object)
+    good, bad = {"pattern": flip(0.05)}, {"pattern": flip(0.30)}
+    for p in (good, bad):
+        p["holdup"], p["pgrad"] = np.full(120, 0.2), np.full(120, 10.0)
+    d = no_harm(good, bad, df)
+    assert d.adopt and d.n_pattern == 120 and d.n_holdup == 0, d
+    assert not no_harm(bad, good, df).adopt

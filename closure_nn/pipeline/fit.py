@@ -25,6 +25,7 @@ defaults are the method.
 """
 from __future__ import annotations
 
+import shutil
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -181,6 +182,8 @@ def fit(cfg: DictConfig, table: str | Path | pd.DataFrame, *, line=None, design:
     ft = finetune(ft_cfg, pre.closure, lab.rows, run / "finetune", say=_indent(say),
                   callbacks=[EpochProgress(_indent(say), "finetune", every=10)])
     seconds["finetune"] = time.perf_counter() - t0
+    bundle = run / "bundle"  # the shipped closure, where a user looks for it (the stage folder keeps its own copy)
+    shutil.copytree(ft.bundle, bundle)
 
     t0 = time.perf_counter()
     say("[5/5] scoring on the development rows")
@@ -201,7 +204,7 @@ def fit(cfg: DictConfig, table: str | Path | pd.DataFrame, *, line=None, design:
         "label_map_conflicts": {k: _pattern_conflicts(preds[k], dev_rows) for k in ("baseline", "shipped")}
                                | {"fit_rows_baseline": _pattern_conflicts(predict_table(base, fit_rows, solver), fit_rows)},
         "scores": scores, "selection": ft.metrics["selection"], "shipped": "finetuned" if adopted else "pretrained",
-        "bundle": str(ft.bundle), "search": search_report,
+        "bundle": str(bundle), "search": search_report,
     }
     report["text"] = report_text(report)
     seconds["score"] = time.perf_counter() - t0
@@ -215,7 +218,7 @@ def fit(cfg: DictConfig, table: str | Path | pd.DataFrame, *, line=None, design:
     _prediction_table(kept, dev_rows).to_csv(run / "development_predictions.csv", index=False)
     for line_ in report["text"].splitlines():
         say(line_)
-    return FitResult(run_dir=run, bundle=ft.bundle, closure=ft.closure, report=report,
+    return FitResult(run_dir=run, bundle=bundle, closure=ft.closure, report=report,
                      stages={"pretrain": pre, "finetune": ft})
 
 

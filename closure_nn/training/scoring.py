@@ -15,7 +15,9 @@ measure is the mean of two error ratios over those rows, new over start,
           + \frac{\overline{|\hat p_\mathrm{new}/p - 1|}}{\overline{|\hat p_\mathrm{start}/p - 1|}}\right),
           \qquad \mathrm{gain} = 1 - J
 
-(one ratio where only one target is measured; pgrad rows with :math:`|p| \ge p_0` only), with each
+plus, where rows have an observed flow pattern, the ratio of misclassified rows (stratified smooth
+and wavy counted as one), so that a table of pattern observations alone can adopt a closure
+(one ratio per target that is observed; pgrad rows with :math:`|p| \ge p_0` only), with each
 row's error capped (holdup 0.05, pgrad 50 %: ``holdup_cap``, ``pgrad_cap``) so that one row solved
 in another flow pattern, hundreds of per cent off, cannot decide alone; the cap counts it as a clear
 miss. Measured on an invented truth (docs/evaluation_log.md, 2026-12-03): without the caps a
@@ -118,7 +120,8 @@ class NoHarmSettings:
 @dataclass
 class NoHarmDecision:
     """Outcome of :func:`no_harm`: ``adopt`` the new closure or keep the start; ``gain`` [-] and its
-    bootstrap lower bound ``gain_lower``; ``n_holdup``/``n_pgrad`` rows compared; ``reason`` one line."""
+    bootstrap lower bound ``gain_lower``; ``n_holdup``/``n_pgrad``/``n_pattern`` rows compared;
+    ``reason`` one line."""
 
     adopt: bool
     gain: float
@@ -126,6 +129,7 @@ class NoHarmDecision:
     n_holdup: int
     n_pgrad: int
     reason: str
+    n_pattern: int = 0
 
     def to_dict(self) -> dict:
         return asdict(self)
@@ -137,11 +141,24 @@ def _row_errors(pred: dict[str, np.ndarray], H: np.ndarray, P: np.ndarray, s: No
     return eh, np.minimum(ep, s.pgrad_cap)
 
 
-def _gain(eh_new, eh_old, ep_new, ep_old) -> float:
-    ratios = []
-    for new, old in ((eh_new, eh_old), (ep_new, ep_old)):
-        if new.size and np.mean(old) > 0:
-            ratios.append(np.mean(new) / np.mean(old))
+def _pattern_errors(pred: dict[str, np.ndarray], obs: np.ndarray) -> np.ndarray:
+    """1 where the predicted pattern differs from the observed one (stratified smooth and wavy
+    counted as one), 0 where it agrees, NaN where nothing was observed or predicted."""
+    p = pred.get("pattern")
+    out = np.full(len(obs), np.nan)
+    if p is None:
+        return out
+    coarse = lambda x: "stratified" if isinstance(x, str) and x.startswith("stratified") else x  # noqa: E731
+    for i, (o, q) in enumerate(zip(obs, p)):
+        if isinstance(o, str) and isinstance(q, str):
+            out[i] = float(coarse(o) != coarse(q))
+    return out
+
+
+def _gain(pairs: list[tuple[np.ndarray, np.ndarray]]) -> float:
+    """1 - the mean over targets of mean(new error) / mean(start error) (targets whose start has
+    no error are left out)."""
+    ratios = [np.mean(new) / np.mean(old) for new, old in pairs if new.size and np.mean(old) > 0]
     return 1.0 - float(np.mean(ratios)) if ratios else math.nan
 
 
@@ -161,19 +178,18 @@ def no_harm(new: dict[str, np.ndarray], start: dict[str, np.ndarray], df: pd.Dat
     H, P = observed(df, "holdup"), observed(df, "pgrad")
     eh_n, ep_n = _row_errors(new, H, P, s)
     eh_s, ep_s = _row_errors(start, H, P, s)
-    rh = np.isfinite(eh_n) & np.isfinite(eh_s)
-    rp = np.isfinite(ep_n) & np.isfinite(ep_s)
-    if not (rh.any() or rp.any()):
-        return NoHarmDecision(False, math.nan, math.nan, 0, 0,
-                              "no row with a measured holdup or pgrad that both closures solve: kept the start")
-    gain = _gain(eh_n[rh], eh_s[rh], ep_n[rp], ep_s[rp])
+    obs = observed_patterns(df)
+    errors = [(eh_n, eh_s), (ep_n, ep_s), (_pattern_errors(new, obs), _pattern_errors(start, obs))]
+    rows = [np.flatnonzero(np.isfinite(e_n) & np.isfinite(e_s)) for e_n, e_s in errors]
+    if not any(r.size for r in rows):
+        return NoHarmDecision(False, math.nan, math.nan, 0, 0, "no row with a measured holdup, pgrad or "
+                              "pattern that both closures solve: kept the start")
+    gain = _gain([(e_n[r], e_s[r]) for (e_n, e_s), r in zip(errors, rows)])
     rng = np.random.default_rng(s.seed)
-    ih, ip = np.flatnonzero(rh), np.flatnonzero(rp)
     boots = np.empty(int(s.n_bootstrap))
     for b in range(boots.size):
-        bh = rng.choice(ih, ih.size) if ih.size else ih
-        bp = rng.choice(ip, ip.size) if ip.size else ip
-        boots[b] = _gain(eh_n[bh], eh_s[bh], ep_n[bp], ep_s[bp])
+        picks = [rng.choice(r, r.size) if r.size else r for r in rows]
+        boots[b] = _gain([(e_n[i], e_s[i]) for (e_n, e_s), i in zip(errors, picks)])
     lower = float(np.nanquantile(boots, 1.0 - s.confidence)) if np.isfinite(boots).any() else math.nan
     adopt = bool(gain > s.min_gain and lower > 0)
     if adopt:
@@ -181,4 +197,4 @@ def no_harm(new: dict[str, np.ndarray], start: dict[str, np.ndarray], df: pd.Dat
     else:
         reason = (f"not adopted: gain {100 * gain:+.1f} % (bootstrap lower bound {100 * lower:+.1f} %) is within the "
                   f"noise (needs > {100 * s.min_gain:.0f} % and a lower bound > 0): kept the start")
-    return NoHarmDecision(adopt, gain, lower, int(rh.sum()), int(rp.sum()), reason)
+    return NoHarmDecision(adopt, gain, lower, int(rows[0].size), int(rows[1].size), reason, int(rows[2].size))
