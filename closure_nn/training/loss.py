@@ -51,7 +51,9 @@ Terms (each a weighted mean over the rows it applies to; weights in ``conf/loss/
     in the wrong pattern (an observer's call near a boundary) is solved in the wrong
     configuration, and its misfit of tens of sd would otherwise steer the closure.
 ``pattern``
-    Near-horizontal rows (theta < ``patterns.THETA_STEEP``) with an observed pattern. By default
+    Rows with an observed pattern below ``patterns.THETA_STEEP`` (observed non-stratified ones only
+    from ``patterns.THETA_DOWN`` up: below it the map's other criteria call a stable layer
+    intermittent or annular, so such a label says nothing of the Kelvin-Helmholtz margin). By default
     (``pattern_rows='data_first'``) every such row except those observed stratified that also
     have holdup or pgrad: rows observed intermittent, annular or dispersed bubble - which have no
     stratified configuration and feed no other term - still tell the closure where stratified
@@ -113,7 +115,7 @@ from ..physics.holdup_roots import solve_separated
 from ..physics.local_state import LocalState, local_state
 from ..physics.momentum import (FrictionFactors, Stresses, combined_residual, combined_terms, phase_misfits,
                                 shear_stresses, term_scale)
-from ..physics.patterns import THETA_STEEP, kh_gas_velocity
+from ..physics.patterns import THETA_DOWN, THETA_STEEP, kh_gas_velocity
 from ..physics.vocabulary import CODE, DISPERSED_BUBBLE, INTERMITTENT, STRATIFIED_PATTERNS
 from ..physics.vocabulary import ANNULAR as ANNULAR_PATTERN
 
@@ -499,7 +501,11 @@ class ClosureLoss(nn.Module):
         unstable = torch.zeros_like(strat)
         for code in _UNSTABLE_CODES:
             unstable |= pat == code
-        rows = (strat | unstable) & (batch["theta"] < THETA_STEEP)
+        # the Kelvin-Helmholtz boundary decides a non-stratified pattern only from THETA_DOWN to
+        # THETA_STEEP (closure_nn.physics.patterns); below THETA_DOWN other criteria (Barnea 1986)
+        # call a stable layer intermittent or annular, so there only stratified labels tell the KH margin
+        theta = batch["theta"]
+        rows = (strat | (unstable & (theta >= THETA_DOWN))) & (theta < THETA_STEEP)
         if self.settings.pattern_rows == "pattern_only":
             rows = rows & ~has_target
         elif self.settings.pattern_rows == "data_first":
