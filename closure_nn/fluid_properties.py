@@ -33,6 +33,17 @@ class PhaseProperties:
     molar_mass: float
 
 
+def props_si(fluid: str, alternative: str = "or give densities and viscosities directly"):
+    """CoolProp's ``PropsSI`` (the one wrapper of the optional CoolProp package); without it an
+    :class:`InputError` naming the extra to install and the ``alternative``."""
+    try:
+        from CoolProp.CoolProp import PropsSI
+    except ImportError:  # pragma: no cover - depends on the environment
+        raise InputError(f"fluid {fluid!r} needs CoolProp: install the extra with "
+                         f"`pip install 'closure-nn[coolprop]'`, {alternative}") from None
+    return PropsSI
+
+
 def named_fluid(fluid: str, p, T) -> PhaseProperties:
     """Properties of the CoolProp fluid ``fluid`` (e.g. 'Methane', 'Nitrogen', 'Air', 'Water')
     at absolute pressure p [Pa] and temperature T [K] (scalars or arrays, broadcast).
@@ -41,17 +52,13 @@ def named_fluid(fluid: str, p, T) -> PhaseProperties:
     >>> round(float(props.rho), 1)
     998.2
     """
-    try:
-        import CoolProp.CoolProp as CP
-    except ImportError:
-        raise InputError(f"fluid {fluid!r} needs CoolProp: install the extra with `pip install closure-nn[coolprop]`, "
-                         "or give densities and viscosities directly") from None
+    PropsSI = props_si(fluid)
     p, T = np.broadcast_arrays(np.asarray(p, dtype=float), np.asarray(T, dtype=float))
     try:
-        M = float(CP.PropsSI("M", fluid))
-        rho = np.vectorize(lambda pp, tt: CP.PropsSI("D", "P", pp, "T", tt, fluid))(p, T)
-        mu = np.vectorize(lambda pp, tt: CP.PropsSI("V", "P", pp, "T", tt, fluid))(p, T)
-        Z = np.vectorize(lambda pp, tt: CP.PropsSI("Z", "P", pp, "T", tt, fluid))(p, T)
+        M = float(PropsSI("M", fluid))
+        rho = np.vectorize(lambda pp, tt: PropsSI("D", "P", pp, "T", tt, fluid))(p, T)
+        mu = np.vectorize(lambda pp, tt: PropsSI("V", "P", pp, "T", tt, fluid))(p, T)
+        Z = np.vectorize(lambda pp, tt: PropsSI("Z", "P", pp, "T", tt, fluid))(p, T)
     except ValueError as exc:
         raise InputError(f"CoolProp could not evaluate fluid {fluid!r} at p = {p.ravel()[0]:g} Pa, "
                          f"T = {T.ravel()[0]:g} K: {str(exc).splitlines()[0]}") from None

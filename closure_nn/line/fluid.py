@@ -22,6 +22,7 @@ import torch
 
 from ..physics.checks import InputError
 from ..physics.conditions import R_UNIVERSAL, gas_density
+from ..fluid_properties import props_si
 from .definition import P_STD, T_STD, FluidSpec
 
 #: pressure range of the CoolProp table [Pa]
@@ -29,12 +30,7 @@ P_TABLE = (1.0e4, 5.0e7)
 
 
 def _coolprop(fluid: str):
-    try:
-        from CoolProp.CoolProp import PropsSI
-    except ImportError:  # pragma: no cover - depends on the environment
-        raise InputError(f"fluid.coolprop = {fluid!r} needs the optional CoolProp package "
-                         "(pip install 'closure-nn[fluids]'), or give fluid.Z and fluid.mug") from None
-    return PropsSI
+    return props_si(fluid, "or give fluid.Z and fluid.mug")
 
 
 def coolprop_molar_mass(fluid: str) -> float:
