@@ -129,6 +129,11 @@ def test_line_compares_named_closures_and_takes_every_kind_of_ensemble_folder(cl
     summ = json.loads((run / "summary.json").read_text())
     assert list(summ["closures"]) == ["baseline", "net"] and summ["ensemble"]["members"] == 4
     assert "march 1/6" in out and "march 6/6" in out  # one progress line per march
+    # the old spelling of the config's closure still works, with one note
+    assert main(["line", str(closures / "line" / "line.yaml"), "closure=learned", f"closure.path={closures / 'b0'}",
+                 "--out", str(tmp_path / "old"), "--no-plot"]) == 0
+    _one_note(capsys.readouterr().err, f"--closure {closures / 'b0'}")
+    assert list(json.loads(next((tmp_path / "old").glob("line-*/summary.json")).read_text())["closures"]) == ["b0"]
     # line.png carries the key numbers; the table is the summary's
     assert (run / "line.png").stat().st_size > 10_000
     # stations.csv: a plain table, the SI unit in each header (check-data's convention)

@@ -18,7 +18,7 @@ from pathlib import Path
 from ..caution import CAUTION
 from ..config import load_config
 from ..physics.checks import InputError
-from .options import CLOSURE_HELP, add_out_option, load_members
+from .options import CLOSURE_HELP, add_out_option, deprecated, load_members
 from .options import load as load_closure_spec
 
 
@@ -80,9 +80,15 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
         base_dir = path.parent
     line = line_from_config(cfg.line, base_dir=base_dir, where=str(args.line_file or "conf line"))
     closures = {}
+    old_spelling = None
     if not args.closure:
-        closures[str(cfg.closure.get("kind", "closure")) if cfg.closure.get("kind") == "baseline"
-                 else _default_name(str(cfg.closure.path))] = build_closure(cfg.closure)
+        if cfg.closure.get("kind") == "bundle":  # the old spelling closure=learned closure.path=PATH
+            if cfg.closure.get("path") is None:
+                raise InputError("closure=learned needs closure.path=PATH; write --closure PATH instead")
+            old_spelling = str(cfg.closure.path)
+            closures[_default_name(old_spelling)] = load_closure_spec(old_spelling)
+        else:
+            closures[str(cfg.closure.get("kind", "closure"))] = build_closure(cfg.closure)
         for name, ccfg in (cfg.get("compare") or {}).items():
             closures[str(name)] = build_closure(ccfg)
     for item in args.closure:
@@ -137,4 +143,6 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
         print(f"  {name}: FAILED - {msg}")
     print(f"results: {run_dir} ({', '.join(p.name for p in files.values())})")
     print(CAUTION)
+    if old_spelling:  # once the run worked: a failure stays one line
+        deprecated("closure=learned closure.path=PATH", f"--closure {old_spelling}")
     return 0 if not result.failures else 1
