@@ -187,11 +187,35 @@ def fit(cfg: DictConfig, table: str | Path | pd.DataFrame, *, line=None, design:
 
     t0 = time.perf_counter()
     say("[5/5] scoring on the development rows")
+    report, preds = _development_report(cfg, lab, fit_rows, dev_rows, space, synth, pre, ft, bundle)
+    report["search"] = search_report
+    report["text"] = report_text(report)
+    seconds["score"] = time.perf_counter() - t0
+    seconds["total"] = time.perf_counter() - t_all
+    report["seconds"] = seconds
+    kept = {k: preds[k] for k in ("baseline", "pretrained", "shipped")}
+    if figures is not None:
+        report["figures"] = figures({"predictions": kept, "rows": dev_rows, "scores": report["scores"]}, run)
+    write_json(run / "report.json", {k: v for k, v in report.items() if k != "text"})
+    (run / "report.md").write_text(report["text"] + "\n")
+    _prediction_table(kept, dev_rows).to_csv(run / "development_predictions.csv", index=False)
+    for line_ in report["text"].splitlines():
+        say(line_)
+    return FitResult(run_dir=run, bundle=bundle, closure=ft.closure, report=report,
+                     stages={"pretrain": pre, "finetune": ft})
+
+
+def _development_report(cfg: DictConfig, lab: LabTable, fit_rows: pd.DataFrame, dev_rows: pd.DataFrame,
+                        space: DesignSpace, synth, pre: StageResult, ft: StageResult, bundle: Path) -> tuple[dict, dict]:
+    """Baseline, pre-trained, fine-tuned and shipped closure on the development rows: the report
+    dict (without its text) and the predictions of every closure."""
     solver = solver_of(cfg)
+    base = baseline_of(cfg)
     models = {"baseline": base, "pretrained": pre.closure, "finetuned": ft.trained, "shipped": ft.closure}
     preds = {k: predict_table(m, dev_rows, solver) for k, m in models.items()}
     scores = {k: score_table(p, dev_rows) for k, p in preds.items()}
     adopted = bool(ft.metrics["selection"]["members"][0].get("adopt", True))
+    v = lab.validation
     report = {
         "caution": CAUTION, "table": lab.path, "rows": {"read": v.n_rows, "accepted": len(lab.rows),
                                                           "rejected": len(v.rejected), "fit": len(fit_rows),
@@ -204,22 +228,9 @@ def fit(cfg: DictConfig, table: str | Path | pd.DataFrame, *, line=None, design:
         "label_map_conflicts": {k: _pattern_conflicts(preds[k], dev_rows) for k in ("baseline", "shipped")}
                                | {"fit_rows_baseline": _pattern_conflicts(predict_table(base, fit_rows, solver), fit_rows)},
         "scores": scores, "selection": ft.metrics["selection"], "shipped": "finetuned" if adopted else "pretrained",
-        "bundle": str(bundle), "search": search_report,
+        "bundle": str(bundle),
     }
-    report["text"] = report_text(report)
-    seconds["score"] = time.perf_counter() - t0
-    seconds["total"] = time.perf_counter() - t_all
-    report["seconds"] = seconds
-    kept = {k: preds[k] for k in ("baseline", "pretrained", "shipped")}
-    if figures is not None:
-        report["figures"] = figures({"predictions": kept, "rows": dev_rows, "scores": scores}, run)
-    write_json(run / "report.json", {k: v for k, v in report.items() if k != "text"})
-    (run / "report.md").write_text(report["text"] + "\n")
-    _prediction_table(kept, dev_rows).to_csv(run / "development_predictions.csv", index=False)
-    for line_ in report["text"].splitlines():
-        say(line_)
-    return FitResult(run_dir=run, bundle=bundle, closure=ft.closure, report=report,
-                     stages={"pretrain": pre, "finetune": ft})
+    return report, preds
 
 
 def _prediction_table(preds: dict, rows: pd.DataFrame) -> pd.DataFrame:
