@@ -154,3 +154,20 @@ def test_states_at_a_tangency_are_flagged_or_counted_right():
         rs = find_roots(cond(fold * (1 + d)), closure)
         n_ref = 3 if d < 0 else 1
         assert int(rs.n_roots[0]) == n_ref or bool(rs.unresolved[0]), (d, rs)
+
+
+def test_point_solver_in_chunks_equals_one_batch_with_gradients():
+    # chunking is bookkeeping only: values and implicit gradients must not change
+    closure = CLOSURES["churchill_ah"]
+    vsl = torch.tensor([0.01, 0.02, 0.5, 0.0, 0.003], dtype=torch.float64, requires_grad=True)
+    cond = make_conditions(vsl=vsl, vsg=[2.0, 20.0, 1.0, 5.0, 11.0], D=0.05, theta=math.radians(1.0))
+    one = solve_points(cond, closure, entrainment="ishii_mishima")
+    (g_one,) = torch.autograd.grad(torch.nan_to_num(one.holdup).sum(), vsl)
+    parts = solve_points(cond, closure, entrainment="ishii_mishima", chunk=2)
+    (g_parts,) = torch.autograd.grad(torch.nan_to_num(parts.holdup).sum(), vsl)
+    for a, b in ((one.holdup, parts.holdup), (one.pgrad.total, parts.pgrad.total), (g_one, g_parts)):
+        np.testing.assert_allclose(a.detach().numpy(), b.detach().numpy(), rtol=1e-12, atol=0, equal_nan=True)
+    assert torch.equal(one.pattern, parts.pattern) and torch.equal(one.flags, parts.flags)
+    assert float(g_one.abs().sum()) > 0
+    empty = find_roots(make_conditions(vsl=torch.zeros(0), vsg=torch.zeros(0), D=0.05), closure)
+    assert empty.roots.shape == (0, 3)

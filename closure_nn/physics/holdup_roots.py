@@ -256,6 +256,9 @@ def _roots_batch(cond: Conditions, E: torch.Tensor, closure: Callable, kind: str
     """:func:`find_roots` for one batch ``(b,)``, under ``torch.no_grad``: the grid pass in
     chunks of ``grid_chunk`` states, then the turn search and refinement on the whole batch."""
     b = cond.shape[0]
+    if b == 0:
+        return RootSet(torch.empty(0, MAX_ROOTS, dtype=torch.float64), torch.empty(0, dtype=torch.int64),
+                       torch.empty(0, dtype=torch.bool))
     br, tu = [], []
     for i in range(0, b, grid_chunk):
         x, y = _grid_pass(cond[i:i + grid_chunk], E[i:i + grid_chunk], closure, kind, grid)
