@@ -189,7 +189,7 @@ def _solve_points_chunk(cond: Conditions, closure, select: str, entrainment: flo
         pg = PressureGradient(*(scatter(x, y) for x, y in zip(pg, ann.pgrad)))
         flags = flags + torch.where(is_ann & ~ok, FLAG_ANNULAR_NO_ROOT, 0)
         ann_unres = torch.zeros_like(is_ann).index_put((idx,), ann.unresolved)
-        flags = torch.where(ann_unres & ((flags & FLAG_ROOT_PAIR_UNRESOLVED) == 0), flags + FLAG_ROOT_PAIR_UNRESOLVED, flags)
+        flags = flags | torch.where(ann_unres, FLAG_ROOT_PAIR_UNRESOLVED, 0)
 
     # non-separated patterns: published drift-flux / slug models
     for code, model in ((V.CODE[V.INTERMITTENT], intermittent_flow), (V.CODE[V.DISPERSED_BUBBLE], dispersed_bubble_flow),
