@@ -17,6 +17,7 @@ import time
 import traceback
 from pathlib import Path
 
+from .config import CONFIG_DIR_ENV
 from .physics.checks import InputError
 from .run_folder import CREATED_RUN_DIRS
 
@@ -68,14 +69,21 @@ def main(argv: list[str] | None = None) -> int:
     """
     argv = list(sys.argv[1:] if argv is None else argv)
     debug = os.environ.get("CLOSURE_NN_DEBUG", "") not in ("", "0")
-    while argv and argv[0] == "--debug":
-        debug, argv = True, argv[1:]
+    while argv and argv[0] in ("--debug", "--config-dir"):
+        if argv[0] == "--debug":
+            debug, argv = True, argv[1:]
+        else:  # a folder of the user's own config groups, searched before the package's (closure_nn.config)
+            if len(argv) < 2:
+                print("closure-nn: error: --config-dir needs a folder", file=sys.stderr)
+                return 2
+            os.environ[CONFIG_DIR_ENV], argv = argv[1], argv[2:]
     name = argv[0] if argv and argv[0] in COMMANDS else ""
     n_runs = len(CREATED_RUN_DIRS)
     try:
         args, overrides = _split(argv)
         parser = _Parser(prog="closure-nn", description=__doc__.splitlines()[0],
-                         epilog="--debug before the command prints the full traceback of an error.")
+                         epilog="--debug before the command prints the full traceback of an error; "
+                                "--config-dir DIR before it adds a folder of your own config groups.")
         sub = parser.add_subparsers(dest="command", metavar="COMMAND")
         for cmd, (_, help_) in COMMANDS.items():
             sub.add_parser(cmd, help=help_, add_help=False)

@@ -1,11 +1,14 @@
 """Compose the Hydra configs in conf/ with ``key=value`` overrides (no Hydra app, no chdir)."""
 from __future__ import annotations
 
+import os
 from pathlib import Path
 
 from .physics.checks import InputError
 
 CONF_DIR = Path(__file__).resolve().parent.parent / "conf"
+#: environment variable naming a folder of the user's own configs (``closure-nn --config-dir DIR``)
+CONFIG_DIR_ENV = "CLOSURE_NN_CONFIG_DIR"
 
 
 def load_config(name: str, overrides: list[str] | tuple[str, ...] = (), config_dir: str | Path | None = None):
@@ -24,6 +27,7 @@ def load_config(name: str, overrides: list[str] | tuple[str, ...] = (), config_d
     if not (CONF_DIR / f"{name}.yaml").exists():
         raise InputError(f"no config {name!r} in {CONF_DIR}")
     extra = []
+    config_dir = config_dir if config_dir is not None else (os.environ.get(CONFIG_DIR_ENV) or None)
     if config_dir is not None:
         d = Path(config_dir).resolve()
         if not d.is_dir():

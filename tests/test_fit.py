@@ -212,3 +212,24 @@ def test_settings_search_is_seeded_and_chooses_inside_the_declared_space(invente
     pd.testing.assert_frame_equal(t0.drop(columns="seconds"), t1.drop(columns="seconds"))
     assert len(t0) == 2 and set(t0["trainer.max_epochs"]) <= {2, 3}
     assert 0.3 <= c0.finetune.lr_factor <= 2.0 and c0.trainer.max_epochs in (2, 3)
+
+
+def test_a_users_own_config_folder_is_searched_first(tmp_path, capsys, monkeypatch):
+    """`closure-nn --config-dir DIR` (any command) and `fit --config-dir DIR`: config groups of the
+    user's own, read from any path; the installed conf/ is not edited."""
+    from closure_nn.config import CONF_DIR, CONFIG_DIR_ENV
+
+    monkeypatch.delenv(CONFIG_DIR_ENV, raising=False)
+    (tmp_path / "design").mkdir()
+    text = (CONF_DIR / "design" / "demo_loop.yaml").read_text().replace("name: demo_loop", "name: my_loop")
+    (tmp_path / "design" / "my_loop.yaml").write_text(text)
+    assert main(["synth", "design=my_loop", "n=20", "--quiet", "--out", str(tmp_path / "a")]) == 2
+    assert "my_loop" in capsys.readouterr().err
+    assert main(["--config-dir", str(tmp_path), "synth", "design=my_loop", "n=20", "--quiet",
+                 "--out", str(tmp_path / "b")]) == 0
+    assert not (CONF_DIR / "design" / "my_loop.yaml").exists()
+    (tmp_path / "model").mkdir()
+    (tmp_path / "model" / "narrow.yaml").write_text("defaults:\n  - correction\n  - _self_\nhidden: [16, 16]\n")
+    monkeypatch.delenv(CONFIG_DIR_ENV, raising=False)
+    cfg = load_config("fit", ["model=narrow"], config_dir=tmp_path)
+    assert list(cfg.model.hidden) == [16, 16] and cfg.model.bound.f_i == 4.0
