@@ -163,12 +163,9 @@ def test_refused_with_one_line(work, capsys, argv, fragments):
 
 @pytest.mark.parametrize("argv,fragments", [c[1:] for c in FIT_DESIGN_CASES], ids=[c[0] for c in FIT_DESIGN_CASES])
 def test_a_misspelled_design_file_is_refused(work, capsys, argv, fragments):
-    _assert_refused(capsys, work, argv, fragments, run_folder_left=True)
+    _assert_refused(capsys, work, argv, fragments)
 
 
-@pytest.mark.xfail(strict=True, reason="closure_nn/pipeline/fit.py makes the run folder (CAUTION.txt, settings.yaml) "
-                   "before it validates the table and parses --design, so a refused table or design file leaves "
-                   "a run folder behind (left to the pipeline's owner)")
 def test_a_refused_design_file_leaves_no_run_folder(work, capsys):
     _assert_refused(capsys, work, *FIT_DESIGN_CASES[0][1:])
 

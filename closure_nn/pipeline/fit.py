@@ -130,33 +130,30 @@ def fit(cfg: DictConfig, table: str | Path | pd.DataFrame, *, line=None, design:
     ``run_dir``: the run folder (default: a new ``fit-<time>`` under ``run_root``).
     """
     t_all = time.perf_counter()
-    run = Path(run_dir) if run_dir is not None else make_run_dir("fit", root=cfg.run_root, name=cfg.run_name)
-    run.mkdir(parents=True, exist_ok=True)
-    (run / "CAUTION.txt").write_text(CAUTION + "\n")
-    OmegaConf.save(cfg, run / "settings.yaml", resolve=True)
     seconds: dict[str, float] = {}
-
+    # the table and the design space first: a refused input leaves no run folder behind
     t0 = time.perf_counter()
     lab = validate_lab(table)
     v = lab.validation
     say(f"[1/5] table {lab.path}: {v.n_rows} row(s) read, {len(lab.rows)} accepted, {len(v.rejected)} rejected")
-    if len(v.rejected):
-        v.write(run)
-        for reason in v.rejected["reason"].head(10):
-            say(f"      rejected: {str(reason).split(' | ')[0]}")
-        if len(v.rejected) > 10:
-            say(f"      ... {len(v.rejected) - 10} more in {run / 'rejected.csv'}")
+    for reason in v.rejected["reason"].head(10) if len(v.rejected) else []:
+        say(f"      rejected: {str(reason).split(' | ')[0]}")
     if len(lab.rows) < 10:
         raise InputError(f"fit: {lab.path}: {len(lab.rows)} accepted row(s); need at least 10 to fit and check a closure")
     fit_rows, dev_rows = development_split(cfg, lab.rows)
     say(f"      {len(fit_rows)} rows to fine-tune on, {len(dev_rows)} development rows held back "
         f"(seeded {100 * float(cfg.data.val_fraction):.0f} %, seed {int(cfg.seed)})")
     seconds["validate"] = time.perf_counter() - t0
-
     t0 = time.perf_counter()
     space = design_space(cfg, lab, line, design, say)
+    run = Path(run_dir) if run_dir is not None else make_run_dir("fit", root=cfg.run_root, name=cfg.run_name)
+    run.mkdir(parents=True, exist_ok=True)
+    (run / "CAUTION.txt").write_text(CAUTION + "\n")
+    OmegaConf.save(cfg, run / "settings.yaml", resolve=True)
+    if len(v.rejected):
+        v.write(run)
+        say(f"      the {len(v.rejected)} rejected row(s) with their reasons: {run / 'rejected.csv'}")
     say(f"[2/5] design space {space.name!r}: " + "; ".join(describe_envelope(space)))
-    base = baseline_of(cfg)
     synth = synthesize_design(cfg, space, int(cfg.fit.synth.n), int(cfg.fit.synth.seed))
     say(f"      {len(synth.table)} synthetic points of the baseline in {synth.report['seconds']:.0f} s")
     synth.table.to_parquet(run / "synthetic.parquet")  # provenance of the pre-training
