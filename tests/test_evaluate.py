@@ -162,7 +162,7 @@ def test_report_files_are_written(tiny_report):
     g = saved["splits"]["grouped"]
     assert g["test_groups"] == ["0.1"]
     pred = pd.read_csv(run / "predictions_grouped.csv")
-    assert np.allclose(pred["D"], 0.1) and len(pred) == g["n_test"]
+    assert np.allclose(pred["D [m]"], 0.1) and len(pred) == g["n_test"]  # plain table, SI unit in the header
     # every model is scored on the same rows
     s = g["scores"]["clean"]
     assert len({m["n_holdup"] for m in s.values()}) == 1 and len({m["n_pgrad"] for m in s.values()}) == 1

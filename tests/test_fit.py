@@ -120,6 +120,8 @@ def test_fit_writes_bundle_report_figure_and_settings(fitted):
                                                "pattern_accuracy"}
     terms = report["rows_per_term"]["finetune"]
     assert terms["data_holdup"] > 0 and terms["data_pgrad"] > 0 and terms["phase_residual"] > 0
+    pred = pd.read_csv(fitted / "development_predictions.csv")  # a plain table, SI units in the headers
+    assert {"holdup [-]", "pgrad [Pa/m]", "holdup_shipped [-]", "pgrad_shipped [Pa/m]", "pattern_shipped"} <= set(pred.columns)
     text = (fitted / "report.md").read_text()
     assert "CAUTION" in text and "development rows" in text
 

@@ -56,6 +56,7 @@ from ..caution import CAUTION
 from ..closures.bundle import load_bundle
 from ..config import CONF_DIR, load_config
 from ..data.design_space import parse_design
+from ..data.result_tables import write_result_csv
 from ..data.splits import group_labels, grouped_split, kfold_split, random_split
 from ..data.table_io import read_table
 from ..physics.checks import InputError
@@ -256,7 +257,7 @@ def evaluate_split(cfg: DictConfig, name: str, lab: pd.DataFrame, train_idx: np.
         for k, p in preds.items():
             for q in ("holdup", "pgrad", "pattern"):
                 tab[f"{q}_{k}"] = p[q]
-        tab.to_csv(run_dir / f"predictions_{name}.csv", index=False)
+        write_result_csv(tab, run_dir / f"predictions_{name}.csv")  # SI values, the unit in each header
     return out
 
 

@@ -38,6 +38,7 @@ from omegaconf import DictConfig, OmegaConf
 
 from ..caution import CAUTION
 from ..data.design_space import DesignSpace, parse_design
+from ..data.result_tables import write_result_csv
 from ..data.table_io import read_table
 from ..data.validate import ValidationResult, validate_table
 from ..physics.checks import InputError
@@ -195,7 +196,7 @@ def fit(cfg: DictConfig, table: str | Path | pd.DataFrame, *, line=None, design:
         report["figures"] = figures({"predictions": kept, "rows": dev_rows, "scores": report["scores"]}, run)
     write_json(run / "report.json", {k: v for k, v in report.items() if k != "text"})
     (run / "report.md").write_text(report["text"] + "\n")
-    _prediction_table(kept, dev_rows).to_csv(run / "development_predictions.csv", index=False)
+    write_result_csv(_prediction_table(kept, dev_rows), run / "development_predictions.csv")
     for line_ in report["text"].splitlines():
         say(line_)
     return FitResult(run_dir=run, bundle=bundle, closure=ft.closure, report=report,
@@ -234,8 +235,8 @@ def _prediction_table(preds: dict, rows: pd.DataFrame) -> pd.DataFrame:
     cols = [c for c in ("run_id", "D", "theta", "vsl", "vsg", "holdup", "pgrad", "pattern") if c in rows.columns]
     out = rows[cols].copy().reset_index(drop=True)
     for k, p in preds.items():
-        for q, unit in (("holdup", "[-]"), ("pgrad", "[Pa/m]"), ("pattern", "")):
-            out[f"{q}_{k} {unit}".strip()] = p[q]
+        for q in ("holdup", "pgrad", "pattern"):
+            out[f"{q}_{k}"] = p[q]
     return out
 
 
