@@ -402,7 +402,7 @@ RULES: dict[str, dict[str, Rule]] = {
         "fit.margins.roughness": Number(1), "fit.margins.rhog": Number(1),
         "fit.margins.liquid": Number(0, 1, open_hi=True), "fit.margins.mul": Number(1),
         "fit.margins.mug": Number(0, 1, open_hi=True),
-        "fit.search.trials": WHOLE0, "fit.search.seed": SEED, "fit.search.processes": WHOLE1,
+        "fit.search.trials": WHOLE0, "fit.search.seed": SEED, "fit.search.processes": WHOLE1, "fit.search.trial_max_epochs": Number(1, whole=True),
         "fit.search.space": Opaque("a mapping of config keys to {low, high, log} or {choices}"),
     },
     "evaluate": {

@@ -11,6 +11,9 @@ time that run side by side on as many CPU processes, so the same table, seed, nu
 processes give the same trials. Test rows, if a user keeps any, are never seen: only the table given to
 ``fit`` is used, and of it only the development rows score a trial.
 
+Each trial runs on a reduced epoch budget (``fit.search.trial_max_epochs``, 20 by default: a
+low-fidelity evaluation that ranks the settings, as in successive halving, Jamieson & Talwalkar 2016,
+AISTATS, from memory), so that eight trials fit in a quarter of an hour on two cores.
 The chosen settings then fine-tune the shipped closure (``fit`` runs the final fine-tune with
 them, under the do-no-harm rule). Caveat, stated in the report: the development rows both choose
 the settings and judge the result, so the reported development scores after a search are
@@ -72,7 +75,9 @@ def search_settings(cfg: DictConfig, pre: StageResult, rows: pd.DataFrame, run_d
         # a batch of trials side by side (ask/tell): the same trials for the same seed and processes
         batch = [study.ask() for _ in range(min(procs, n - len(trials)))]
         values = [{k: _suggest(t, k, spec) for k, spec in space.items()} for t in batch]
-        jobs = [(cfg, pre.closure, rows, run / f"trial_{t.number:03d}", v) for t, v in zip(batch, values)]
+        cap = cfg.fit.search.get("trial_max_epochs")
+        budget = {"trainer.max_epochs": int(cap)} if cap and "trainer.max_epochs" not in space else {}
+        jobs = [(cfg, pre.closure, rows, run / f"trial_{t.number:03d}", {**budget, **v}) for t, v in zip(batch, values)]
         results = map_in_processes(_trial, jobs, procs, threads=int(cfg.trainer.num_threads))
         for t, v, r in zip(batch, values, results):
             study.tell(t, r["gain"] if r["gain"] == r["gain"] else -1e9)
