@@ -11,7 +11,7 @@ time that run side by side on as many CPU processes, so the same table, seed, nu
 processes give the same trials. Test rows, if a user keeps any, are never seen: only the table given to
 ``fit`` is used, and of it only the development rows score a trial.
 
-Each trial runs on a reduced epoch budget (``fit.search.trial_max_epochs``, 20 by default: a
+Each trial runs on a reduced epoch budget (``fit.search.trial_max_epochs``, 12 by default: a
 low-fidelity evaluation that ranks the settings, as in successive halving, Jamieson & Talwalkar 2016,
 AISTATS, from memory), so that eight trials fit in a quarter of an hour on two cores.
 The chosen settings then fine-tune the shipped closure (``fit`` runs the final fine-tune with
