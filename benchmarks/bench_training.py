@@ -7,7 +7,7 @@
    prior, smoothness; no solver in the loop), batch 4096. Goal <= 2 s.
 2. The same with the solver-in-the-loop misfit (data_holdup, data_pgrad on; the equilibrium and
    its implicit gradient per batch). Goal <= 10 s.
-3. The demo's pre-train + fine-tune (:func:`closure_nn.training.evaluate.train_experiment`,
+3. The demo's pre-train + fine-tune (:func:`closure_nn.pipeline.evaluate.train_experiment`,
    conf/experiment/demo.yaml). Goal <= 5 min on 2 cores.
 
 Epoch times are the training part of one epoch measured by the EpochTimer callback
@@ -91,7 +91,7 @@ def main(argv: list[str] | None = None) -> int:
             r["separated_rows_trained"] = int(round(0.99 * n_sep))
             print(json.dumps(r))
         if not a.skip_demo:
-            from closure_nn.training.evaluate import load_lab, train_experiment
+            from closure_nn.pipeline.evaluate import load_lab, train_experiment
 
             cfg = load_config("evaluate", [])
             lab = load_lab(cfg.lab)

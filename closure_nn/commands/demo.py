@@ -5,7 +5,7 @@ One run folder ``runs/demo-<time>/`` holds every stage:
 1. ``evaluation/``: a Latin-hypercube synthetic set of the baseline -> pre-training -> fine-tuning
    on the lab campaign's training rows; held-out scores of baseline, learned closure and a
    black-box regressor on a random and a grouped (100 mm section left out) split
-   (:func:`closure_nn.training.evaluate.run_evaluation`);
+   (:func:`closure_nn.pipeline.evaluate.run_evaluation`);
 2. ``ensemble/``: the band's ensemble, ``ensemble/band``: the evaluated fine-tuned closure plus
    ``ensemble_members`` - 1 bootstrap members fine-tuned from the same pre-trained bundle on the same
    rows (trained side by side on ``ensemble_processes`` CPU processes);

@@ -1,6 +1,6 @@
 """Figures of the closure evaluation (matplotlib, Agg backend): parity, residuals, curves, folds.
 
-Inputs are plain dicts and numpy arrays from :func:`closure_nn.training.evaluate.run_evaluation`;
+Inputs are plain dicts and numpy arrays from :func:`closure_nn.pipeline.evaluate.run_evaluation`;
 this module does not import the training code. Every figure states in its title or footer how
 its numbers were measured (which rows, which split, corrupted rows in or out).
 """

@@ -1,6 +1,6 @@
 r"""A direct black-box regressor: a plain MLP from the input columns straight to holdup and pgrad.
 
-This is the comparison model of the evaluation (:mod:`closure_nn.training.evaluate`): no
+This is the comparison model of the evaluation (:mod:`closure_nn.pipeline.evaluate`): no
 momentum balance, no closure, no flow pattern - just a regression of the two measured targets on
 the operating condition. It is trained on the same rows and with the same budget (epochs, batch
 size, learning rate, early stopping on a held-back share of the training rows) as the fine-tuned

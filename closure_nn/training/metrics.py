@@ -9,7 +9,7 @@ predicts: :func:`~closure_nn.data.features.resolve_kinds`) and compared:
 * ``pgrad_rel_rmse`` [-]: RMS of (predicted / measured - 1) over rows with |pgrad| >= 1 Pa/m,
 * ``n_rows`` rows compared, ``n_no_root`` rows without an equilibrium (left out of the errors).
 
-Held-out scoring (used by :mod:`closure_nn.training.evaluate`): :func:`error_summary` (MAE, MAPE,
+Held-out scoring (used by :mod:`closure_nn.pipeline.evaluate`): :func:`error_summary` (MAE, MAPE,
 share within +-10/20/30 %), :func:`pattern_accuracy`, :func:`measured_state_residuals` (phase
 balances at the measured states) and :func:`solver_state_residuals` (balances at the solver's
 own outputs, zero by construction).
