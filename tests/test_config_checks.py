@@ -7,6 +7,9 @@ The allowed sets are the code's own registries (root rules, correlations, loss o
 pattern rules, the config groups' yaml files); the physical ranges are those of
 closure_nn.physics.checks.RANGES. The line and design YAML files written here are invented
 examples, and the lab table is the invented oil-gas loop of tests/fixtures/loop_si.csv.
+
+No published source applies: these check the tool's own input rules; the valid ranges of
+physical values are those of closure_nn.physics.checks, whose tests name their sources.
 """
 from __future__ import annotations
 
