@@ -40,7 +40,6 @@ fine-tune for the benchmarks), :func:`run_evaluation`.
 from __future__ import annotations
 
 import csv
-import json
 import math
 import time
 import warnings

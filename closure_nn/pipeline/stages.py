@@ -23,7 +23,7 @@ from omegaconf import DictConfig, OmegaConf
 from ..closures.baseline import BaselineClosure
 from ..data.design_space import DesignSpace
 from ..data.synthetic import SyntheticSet, synthesize
-from ..training.run import BASELINE_KEYS, StageResult, run_stage
+from ..training.run import StageResult, baseline_kwargs, run_stage
 from ..training.tables import split_table
 
 Say = Callable[[str], None]
@@ -48,8 +48,7 @@ def stage_config(cfg: DictConfig, stage: str, **values) -> DictConfig:
 
 def baseline_of(cfg: DictConfig) -> BaselineClosure:
     """The baseline closure of a composed config (``closure`` group)."""
-    c = OmegaConf.to_container(cfg.closure, resolve=True)
-    return BaselineClosure(**{k: c[k] for k in BASELINE_KEYS if k in c})
+    return BaselineClosure(**baseline_kwargs(cfg))
 
 
 def solver_of(cfg: DictConfig) -> dict:

@@ -69,7 +69,8 @@ def _provenance(name: str, path, df: pd.DataFrame) -> dict:
     return out
 
 
-def _baseline_kwargs(cfg: DictConfig) -> dict:
+def baseline_kwargs(cfg: DictConfig) -> dict:
+    """Keyword arguments of the config's baseline closure (``closure`` group, kind baseline)."""
     c = OmegaConf.to_container(cfg.closure, resolve=True)
     if c.get("kind", "baseline") != "baseline":
         raise InputError(f"train: closure.kind must be 'baseline' (the model's baseline), got {c.get('kind')!r}")
@@ -80,7 +81,7 @@ def _new_closure(cfg: DictConfig, df: pd.DataFrame) -> NeuralClosure:
     m = cfg.model
     bound = OmegaConf.to_container(m.bound) if OmegaConf.is_config(m.bound) else m.bound
     closure = NeuralClosure(hidden=list(m.hidden), activation=m.activation, mode=m.mode, bound=bound,
-                            direct_span=m.direct_span, baseline=_baseline_kwargs(cfg),
+                            direct_span=m.direct_span, baseline=baseline_kwargs(cfg),
                             inputs=OmegaConf.to_container(m.inputs, resolve=True) if m.get("inputs") else None,
                             learn=list(m.learn) if m.get("learn") else None,
                             base_input=bool(m.get("base_input", False)))
