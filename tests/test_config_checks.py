@@ -21,7 +21,9 @@ from omegaconf import OmegaConf
 
 from closure_nn.cli import ERROR_LOG, main
 from closure_nn.config import CONF_DIR, load_config
-from closure_nn.config_checks import RULES, Choice, MapOf, _registry, changed_keys, check_config
+from closure_nn.config_checks import changed_keys, check_config
+from closure_nn.config_rule_types import Choice, MapOf, _registry
+from closure_nn.config_rules import RULES
 from closure_nn.physics.checks import InputError
 
 FIXTURES = Path(__file__).parent / "fixtures"
