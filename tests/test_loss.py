@@ -185,7 +185,7 @@ def test_rows_of_unknown_pattern_take_the_predicted_configuration():
         assert counts_u[k] == counts_o[k] > 0
         assert float(terms_u[k]) == pytest.approx(float(terms_o[k]), rel=1e-9)
     # the held-out residuals at the measured states resolve them alike (closure_nn.training.metrics)
-    from closure_nn.training.loss import uncertainties
+    from closure_nn.training.loss_batch import uncertainties
     from closure_nn.training.metrics import measured_state_residuals
     sd_p = uncertainties(t_obs, LossSettings())[1]
     r_o = measured_state_residuals(net, t_obs, sd_p)

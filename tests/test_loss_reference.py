@@ -23,7 +23,8 @@ from closure_nn.physics.groups import closure_features
 from closure_nn.physics.local_state import local_state
 from closure_nn.physics.momentum import combined_residual, gas_residual, liquid_residual, shear_stresses
 from closure_nn.training.datamodule import TableDataModule, TensorRows, with_measured_frac
-from closure_nn.training.loss import TERMS, ClosureLoss, LossSettings, smoothness
+from closure_nn.training.loss import TERMS, ClosureLoss, LossSettings
+from closure_nn.training.loss_terms import smoothness
 from closure_nn.training.tables import table_tensors
 
 WALL_ONLY = {"f_wl": ["log10_Re_L", "frac", "rel_rough"], "f_wg": ["log10_Re_G", "frac", "rel_rough"], "f_i": None}

@@ -61,7 +61,8 @@ from ..data.table_io import read_table
 from ..physics.checks import InputError
 from ..run_folder import write_json
 from ..training.blackbox import BlackBoxRegressor, BlackBoxSettings
-from ..training.loss import LossSettings, uncertainties
+from ..training.loss import LossSettings
+from ..training.loss_batch import uncertainties
 from ..training.metrics import measured_state_residuals
 from ..training.processes import map_in_processes
 from ..training.run import StageResult, with_stage_trainer

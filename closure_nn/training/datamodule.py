@@ -5,7 +5,7 @@ import lightning as L
 import torch
 from torch.utils.data import DataLoader, Dataset, Sampler
 
-from .loss import measured_frac
+from .loss_batch import measured_frac
 from .tables import n_rows
 
 
@@ -45,7 +45,7 @@ def _identity(batch):
 
 
 def with_measured_frac(t: dict[str, torch.Tensor]) -> dict[str, torch.Tensor]:
-    """``t`` plus the key ``frac_measured`` (:func:`closure_nn.training.loss.measured_frac`): the
+    """``t`` plus the key ``frac_measured`` (:func:`closure_nn.training.loss_batch.measured_frac`): the
     level at the measured holdup depends on the row alone, so it is computed once per row here
     rather than in every batch of every epoch."""
     if not t or n_rows(t) == 0:

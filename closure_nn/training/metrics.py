@@ -23,7 +23,7 @@ import torch
 
 from ..data.features import KIND_CODE, KINDS
 from ..physics.holdup_roots import solve_separated
-from .loss import batch_conditions, batch_kinds
+from .loss_batch import batch_conditions, batch_kinds
 
 PGRAD_FLOOR = 1.0  # Pa/m: rows with a smaller |pgrad| are left out of the relative error
 
@@ -137,9 +137,9 @@ def measured_state_residuals(closure, t: dict[str, torch.Tensor], pgrad_sd: torc
     (the ``phase_residual`` of the training loss). A closure consistent with the data has
     residuals of order one; ``pgrad_sd`` ``(N,)`` [Pa/m] is the per-row sigma_p. Given
     ``holdup_sd`` ``(N,)``, sigma_p is replaced by the effective sd that also carries the holdup
-    uncertainty (:func:`closure_nn.training.loss.holdup_sensitivity`, as in the loss).
+    uncertainty (:func:`closure_nn.training.loss_terms.holdup_sensitivity`, as in the loss).
     """
-    from .loss import holdup_sensitivity
+    from .loss_terms import holdup_sensitivity
 
     from ..data.features import frac_from_holdup
     from ..physics.local_state import local_state

@@ -436,7 +436,7 @@ def _domain_summary(closure: NeuralClosure, cfg: DictConfig) -> dict:
 
 def _ensemble_metrics(ens: ClosureEnsemble, val_t: dict, cfg: DictConfig) -> dict:
     from ..data.features import KIND_CODE, KINDS
-    from .loss import batch_conditions, batch_kinds
+    from .loss_batch import batch_conditions, batch_kinds
 
     spreads_h, spreads_p, errs = [], [], []
     kinds = batch_kinds(val_t, ens, cfg.loss.select)  # rows of kind predicted: the ensemble's pattern
