@@ -16,6 +16,7 @@ from typing import TYPE_CHECKING
 from .caution import CAUTION
 from .closures.base import Closure
 from .closures.baseline import BaselineClosure
+from .closures.loading import load_saved_closure
 from .physics.checks import InputError
 
 if TYPE_CHECKING:  # pandas is imported when solve runs, not with the package
@@ -56,9 +57,7 @@ def load_closure(closure: str | os.PathLike = BASELINE) -> Closure:
     """
     if isinstance(closure, str) and closure == BASELINE:
         return BaselineClosure(wall="churchill")
-    from .closures.bundle import load_bundle
-
-    return load_bundle(closure)
+    return load_saved_closure(closure)
 
 
 def solve(df: "pd.DataFrame", closure: str | os.PathLike | Closure = BASELINE, select: str = "thinnest",

@@ -4,11 +4,11 @@ from __future__ import annotations
 import os
 from pathlib import Path
 
+from .config_checks import check_config, override_error
+from .config_location import CONF_DIR, CONFIG_DIR_ENV
 from .physics.checks import InputError
 
-CONF_DIR = Path(__file__).resolve().parent.parent / "conf"
-#: environment variable naming a folder of the user's own configs (``closure-nn --config-dir DIR``)
-CONFIG_DIR_ENV = "CLOSURE_NN_CONFIG_DIR"
+__all__ = ["CONF_DIR", "CONFIG_DIR_ENV", "load_config", "require_complete"]
 
 
 def load_config(name: str, overrides: list[str] | tuple[str, ...] = (), config_dir: str | Path | None = None):
@@ -41,11 +41,7 @@ def load_config(name: str, overrides: list[str] | tuple[str, ...] = (), config_d
     try:
         cfg = _compose(list(overrides))
     except (HydraException, OmegaConfBaseException) as exc:
-        from .config_checks import override_error  # nearest valid key, a group's choices
-
         raise override_error(name, overrides, exc, config_dir, compose=_compose) from None
-    from .config_checks import check_config  # every value against its allowed set or range
-
     check_config(cfg, name, config_dir=config_dir)
     return cfg
 

@@ -24,6 +24,7 @@ from collections.abc import Callable, Iterable, Mapping
 from pathlib import Path
 
 from .config_rule_types import MapOf, Number, Opaque, Rule, _is_number, _registry, show
+from .config_location import CONF_DIR
 from .config_rules import RESUME_SAFE, RULES
 from .physics.checks import InputError
 
@@ -193,8 +194,6 @@ def check_config(cfg, name: str, config_dir: str | Path | None = None) -> None:
 
 def group_choices(group: str, config_dir: str | Path | None = None) -> list[str]:
     """Names of the yaml files of config group ``group`` in conf/ and in ``config_dir``."""
-    from .config import CONF_DIR
-
     dirs = [CONF_DIR / group] + ([Path(config_dir) / group] if config_dir is not None else [])
     return sorted({p.stem for d in dirs if d.is_dir() for p in d.glob("*.yaml")})
 
@@ -253,8 +252,6 @@ def override_error(name: str, overrides: Iterable[str], exc: Exception, config_d
 def _other_group_hint(key: str, config_dir) -> str:
     """' (closure.path is a key of closure=learned)' when another option of the group has the key."""
     from omegaconf import OmegaConf
-
-    from .config import CONF_DIR
 
     group, _, rest = key.partition(".")
     if not rest:

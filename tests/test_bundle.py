@@ -17,6 +17,7 @@ import torch
 from closure_nn.closures.baseline import BaselineClosure
 from closure_nn.closures.bundle import BundleError, export_plain, load_bundle, save_bundle
 from closure_nn.closures.ensemble import ClosureEnsemble, load_ensemble, save_ensemble
+from closure_nn.closures.loading import load_saved_closure
 from closure_nn.closures.neural import NeuralClosure
 from closure_nn.closures.registry import build_closure
 from closure_nn.data.features import FeatureScaler, TrainingDomain
@@ -146,7 +147,7 @@ def test_ensemble_directory_round_trip_and_spread(tmp_path):
             for p in m.branches.parameters():
                 p.mul_(0.2)
     p = save_ensemble(members, tmp_path / "ens")
-    ens = load_bundle(p)
+    ens = load_saved_closure(p)
     assert isinstance(ens, ClosureEnsemble) and len(ens) == 3
     assert isinstance(build_closure({"kind": "bundle", "path": str(p)}), ClosureEnsemble)
     c = make_conditions(vsl=[0.02, 0.05], vsg=[3.0, 8.0], D=0.05, roughness=5e-5)
@@ -173,7 +174,7 @@ def test_combined_ensemble_keeps_every_member_unchanged(tmp_path):
     one, two = trained_like(seed=0), [trained_like(seed=i) for i in (1, 2)]
     b = save_bundle(one, tmp_path / "single")
     e = save_ensemble(two, tmp_path / "pair")
-    ens = load_bundle(combine_ensembles([b, e], tmp_path / "band"))
+    ens = load_saved_closure(combine_ensembles([b, e], tmp_path / "band"))
     assert isinstance(ens, ClosureEnsemble) and len(ens) == 3
     s = states()
     with torch.no_grad():

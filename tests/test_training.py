@@ -19,6 +19,7 @@ import torch
 from closure_nn.closures.baseline import BaselineClosure
 from closure_nn.closures.bundle import load_bundle
 from closure_nn.closures.ensemble import ClosureEnsemble
+from closure_nn.closures.loading import load_saved_closure
 from closure_nn.config import load_config
 from closure_nn.data.features import table_conditions, table_states
 from closure_nn.data.table_io import read_table, write_table
@@ -210,7 +211,7 @@ def test_ensemble_members_give_a_spread(tables):
     cfg = load_config("train", [f"data.train={tables['lab']}", f"run_root={tables['root']}", *TINY,
                                 "trainer.max_epochs=4", "ensemble.members=2", "ensemble.bootstrap=true"])
     m = train(cfg)
-    ens = load_bundle(m["bundle"])
+    ens = load_saved_closure(m["bundle"])
     assert isinstance(ens, ClosureEnsemble) and len(ens) == 2
     assert [mm["seed"] for mm in m["members"]] == [0, 1]
     assert m["ensemble"]["val_holdup_std_mean"] > 0
@@ -223,7 +224,7 @@ def test_ensemble_members_give_a_spread(tables):
     assert [mm["seed"] for mm in par["members"]] == [0, 1]
     for a, b in zip(m["members"], par["members"]):
         assert b["val"]["holdup_rmse"] == pytest.approx(a["val"]["holdup_rmse"], rel=1e-12)
-    pp = load_bundle(par["bundle"]).predict(table_conditions(read_table(tables["heldout"])))
+    pp = load_saved_closure(par["bundle"]).predict(table_conditions(read_table(tables["heldout"])))
     assert torch.allclose(pp.holdup, pred.holdup, rtol=1e-12, atol=0)
 
 

@@ -16,8 +16,8 @@ load with an empty measured-data domain and ``closure.measured_domain_recorded =
 only (no Lightning, no Hydra) and checks it: missing file or key, unparsable JSON, unknown format
 version, a feature list that differs from this code's :data:`~closure_nn.physics.groups.FEATURE_NAMES`,
 a checksum mismatch and weights that do not fit the model each raise :class:`BundleError` with
-the file and what was expected. A directory with ``ensemble.json`` loads as a
-:class:`~closure_nn.closures.ensemble.ClosureEnsemble`.
+the file and what was expected. Any saved closure (a bundle or an ensemble folder) loads with
+:func:`closure_nn.closures.loading.load_saved_closure`.
 
 :func:`export_plain` writes the network as plain JSON (matrices, activation, scaler, output
 formula) for solvers not written in Python; they compute the features and the baseline
@@ -187,14 +187,10 @@ def read_metadata(path: str | os.PathLike) -> dict:
 
 
 def load_bundle(path: str | os.PathLike):
-    """Load a bundle directory as a :class:`NeuralClosure` (an ensemble directory as a
-    :class:`~closure_nn.closures.ensemble.ClosureEnsemble`). The metadata is attached as
-    ``closure.bundle_metadata``. Raises :class:`BundleError` (see module docstring)."""
+    """Load a bundle directory as a :class:`NeuralClosure`; the metadata is attached as
+    ``closure.bundle_metadata``. Raises :class:`BundleError` (see module docstring). Any saved
+    closure, ensembles included: :func:`closure_nn.closures.loading.load_saved_closure`."""
     p = Path(path)
-    if p.is_dir() and (p / "ensemble.json").exists():
-        from .ensemble import load_ensemble
-
-        return load_ensemble(p)
     if not p.exists():
         raise BundleError(f"{p}: no such closure bundle")
     root = p if p.is_dir() else p.parent

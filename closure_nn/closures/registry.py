@@ -25,7 +25,7 @@ def build_closure(cfg: Mapping) -> Closure:
         except ValueError as exc:
             raise InputError(f"closure: {exc}") from None
     if kind == "bundle":
-        from .bundle import load_bundle  # no Lightning import behind this
+        from .loading import load_saved_closure  # torch is imported only for a saved closure
 
-        return load_bundle(cfg["path"])
+        return load_saved_closure(cfg["path"])
     raise InputError(f"closure.kind = {kind!r}; expected 'baseline' or 'bundle'")

@@ -26,7 +26,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace, overrides: list[str]) -> int:
-    from ..closures.bundle import export_plain, load_bundle
+    from ..closures.bundle import export_plain
+    from ..closures.loading import load_saved_closure
     from ..closures.ensemble import ClosureEnsemble
     from ..closures.export_onnx import (INPUT_DESCRIPTION, OUTPUT_DESCRIPTION, check_exportable, check_onnx,
                                            export_onnx)
@@ -42,7 +43,7 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     src = Path(args.bundle)
     if not src.is_dir():
         raise InputError(f"{src}: not a closure bundle folder (no such folder)")
-    closure = load_bundle(src)  # BundleError (an InputError) names the file and what is wrong
+    closure = load_saved_closure(src)  # BundleError (an InputError) names the file and what is wrong
     members = list(closure.members) if isinstance(closure, ClosureEnsemble) else [closure]
     bad = [type(m).__name__ for m in members if not isinstance(m, NeuralClosure)]
     if bad:

@@ -62,7 +62,9 @@ from pathlib import Path
 import numpy as np
 
 from ..data.units import parse_header, to_si
+from ..fluid_properties import props_si
 from ..physics.checks import InputError, check_range
+from ..physics.conditions import R_UNIVERSAL
 
 #: profile column -> (dimension in closure_nn.data.units, required)
 PROFILE_COLUMNS: dict[str, tuple[str, bool]] = {
@@ -319,6 +321,27 @@ def _temperature(prof: dict, cfg: Mapping, where: str) -> np.ndarray:
     return np.asarray(T, dtype=np.float64)
 
 
+def gas_standard_density(f: FluidSpec) -> float:
+    r"""Gas density at standard conditions (15 degC, 1.01325 bar) [kg/m3], for Sm3 rates.
+
+    :math:`\rho_{std} = p_{std} M / (Z_{std} R T_{std})` with Z_std = 1 (ideal gas; Z is within
+    0.3 % of 1 for natural gas at 1 atm, common practice) unless CoolProp gives it.
+
+    >>> round(gas_standard_density(FluidSpec(rhol=800, mul=1e-3, sigma=0.02, M_g=0.016043, Z=0.9, mug=1e-5)), 4)
+    0.6785
+    """
+    if f.coolprop is not None:
+        PropsSI = props_si(f.coolprop, "or give fluid.Z and fluid.mug")
+        try:
+            return float(PropsSI("D", "T", T_STD, "P", P_STD, f.coolprop))
+        except ValueError as exc:
+            raise InputError(f"fluid.coolprop = {f.coolprop!r}: {str(exc).splitlines()[0]}") from None
+    M = f.M_g if f.M_g is not None else 0.0
+    if f.rhog is not None and f.M_g is None:
+        raise InputError("a fixed fluid.rhog needs fluid.M_g to convert Sm3 gas rates; give rates.gas in kg/s")
+    return P_STD * M / (R_UNIVERSAL * T_STD)
+
+
 def line_from_config(cfg: Mapping, base_dir: str | Path | None = None, where: str = "line") -> LineDefinition:
     """Build a :class:`LineDefinition` from a parsed line YAML (dict or DictConfig).
 
@@ -344,8 +367,6 @@ def line_from_config(cfg: Mapping, base_dir: str | Path | None = None, where: st
     n = len(prof["distance"]) - 1
     fluid = _fluid(cfg, where)
     T = _temperature(prof, cfg, where)
-    from .fluid import gas_standard_density  # here: it may need CoolProp
-
     rates = cfg.get("rates") or {}
     for ph in ("gas", "liquid"):
         if rates.get(ph) is None:

@@ -21,9 +21,9 @@ import numpy as np
 import torch
 
 from ..physics.checks import InputError
-from ..physics.conditions import R_UNIVERSAL, gas_density
+from ..physics.conditions import gas_density
 from ..fluid_properties import props_si
-from .definition import P_STD, T_STD, FluidSpec
+from .definition import FluidSpec
 
 #: pressure range of the CoolProp table [Pa]
 P_TABLE = (1.0e4, 5.0e7)
@@ -40,27 +40,6 @@ def coolprop_molar_mass(fluid: str) -> float:
         return float(PropsSI("M", fluid))
     except ValueError as exc:
         raise InputError(f"fluid.coolprop = {fluid!r}: CoolProp does not know it ({str(exc).splitlines()[0]})") from None
-
-
-def gas_standard_density(f: FluidSpec) -> float:
-    r"""Gas density at standard conditions (15 degC, 1.01325 bar) [kg/m3], for Sm3 rates.
-
-    :math:`\rho_{std} = p_{std} M / (Z_{std} R T_{std})` with Z_std = 1 (ideal gas; Z is within
-    0.3 % of 1 for natural gas at 1 atm, common practice) unless CoolProp gives it.
-
-    >>> round(gas_standard_density(FluidSpec(rhol=800, mul=1e-3, sigma=0.02, M_g=0.016043, Z=0.9, mug=1e-5)), 4)
-    0.6785
-    """
-    if f.coolprop is not None:
-        PropsSI = _coolprop(f.coolprop)
-        try:
-            return float(PropsSI("D", "T", T_STD, "P", P_STD, f.coolprop))
-        except ValueError as exc:
-            raise InputError(f"fluid.coolprop = {f.coolprop!r}: {str(exc).splitlines()[0]}") from None
-    M = f.M_g if f.M_g is not None else 0.0
-    if f.rhog is not None and f.M_g is None:
-        raise InputError("a fixed fluid.rhog needs fluid.M_g to convert Sm3 gas rates; give rates.gas in kg/s")
-    return P_STD * M / (R_UNIVERSAL * T_STD)
 
 
 class GasModel:

@@ -52,7 +52,7 @@ import torch
 from omegaconf import DictConfig, OmegaConf
 
 from ..caution import CAUTION
-from ..closures.bundle import load_bundle
+from ..closures.loading import load_saved_closure
 from ..config import CONF_DIR, load_config
 from ..data.design_space import parse_design
 from ..data.result_tables import write_result_csv
@@ -361,7 +361,7 @@ def run_evaluation(cfg: DictConfig, lab_df: pd.DataFrame, pretrained: StageResul
     if isinstance(pretrained, StageResult):
         init, bundle_dir = pretrained.closure, pretrained.bundle
     else:
-        init, bundle_dir = load_bundle(pretrained), pretrained
+        init, bundle_dir = load_saved_closure(pretrained), pretrained
     report: dict = {"caution": CAUTION, "lab": lab_df.attrs.get("path", ""), "n_lab_rows": int(len(lab_df)),
                     "pretrained_bundle": str(bundle_dir), "corrupted_rows": int(corrupt.sum()),
                     "corrupted_rows_in_training": not bool(e.exclude_corrupted),

@@ -42,8 +42,9 @@ from lightning.pytorch.loggers import CSVLogger
 from lightning.pytorch.strategies import DDPStrategy
 from omegaconf import DictConfig, OmegaConf
 
-from ..closures.bundle import load_bundle, save_bundle
+from ..closures.bundle import save_bundle
 from ..closures.ensemble import ClosureEnsemble, save_ensemble
+from ..closures.loading import load_saved_closure
 from ..closures.neural import NeuralClosure
 from ..data.features import FeatureScaler, TrainingDomain, state_features, table_states
 from ..data.table_io import read_table
@@ -171,7 +172,7 @@ def _init_closure(cfg: DictConfig):
     """The starting closure (or ensemble) of a fine-tune or update: the bundle ``init_bundle``."""
     if not cfg.init_bundle:
         raise InputError(f"train: stage {cfg.stage} needs init_bundle=<bundle directory>")
-    return load_bundle(cfg.init_bundle)
+    return load_saved_closure(cfg.init_bundle)
 
 
 def _strategy(t: DictConfig):
