@@ -222,8 +222,8 @@ RULES: dict[str, dict[str, Rule]] = {
         "threads": WHOLE1, "plot": FLAG, "run_root": PATH,
     },
     "demo": {"run_root": PATH, "ensemble_members": WHOLE0, "ensemble_processes": WHOLE1,
-             "evaluate": ListOf(Text("key=value")), "line": ListOf(Text("key=value")),
-             "audit": ListOf(Text("key=value"))},
+             "evaluate_overrides": ListOf(Text("key=value")), "line_overrides": ListOf(Text("key=value")),
+             "audit_overrides": ListOf(Text("key=value"))},
 }
 #: trainer settings a resumed run may change (they do not change the result of the epochs run)
 RESUME_SAFE = ("trainer.max_epochs", "trainer.progress_bar", "trainer.num_threads")

@@ -219,21 +219,21 @@ def test_evaluate_refuses_the_baseline_as_a_start_and_demo_keeps_runs(capsys):
     assert p.parse_args(["--runs", "x"]).out == "x" and p.parse_args(["--out", "y"]).out == "y"
 
 
-def test_demo_calls_audit_and_line_with_the_arguments_their_parsers_define():
-    """demo.py runs audit and line with argparse.Namespace objects: their keywords must be exactly
-    the parsers' destinations, else the demo breaks only at its last stages, minutes in."""
+def test_no_command_calls_another_command():
+    """House rule (DEVELOPING.md): commands are thin shells over the pipeline; none imports another
+    command module (only the shared option helpers, commands/options.py). The demo runs the audit
+    and the line march as functions. No outside source applies."""
     import ast
-    import inspect
+    from pathlib import Path
 
-    from closure_nn.commands import audit, demo, line
+    import closure_nn.commands as commands
 
-    calls = {}
-    for node in ast.walk(ast.parse(inspect.getsource(demo))):
-        if isinstance(node, ast.Call) and isinstance(node.func, ast.Attribute) and node.func.attr == "run" \
-                and isinstance(node.func.value, ast.Name) and node.args and isinstance(node.args[0], ast.Call):
-            calls[node.func.value.id] = {k.arg for k in node.args[0].keywords}
-    for name, module in (("audit_cmd", audit), ("line_cmd", line)):
-        p = argparse.ArgumentParser()
-        module.add_arguments(p)
-        dests = {a.dest for a in p._actions if a.dest != "help"}
-        assert calls[name] == dests, name
+    folder = Path(commands.__file__).parent
+    names = {p.stem for p in folder.glob("*.py")} - {"__init__", "options"}
+    for path in folder.glob("*.py"):
+        for node in ast.walk(ast.parse(path.read_text())):
+            if isinstance(node, ast.ImportFrom):
+                mod = node.module or ""
+                targets = {a.name for a in node.names} if node.level == 1 and not mod else {mod.split(".")[-1]}
+                if node.level == 1 or mod.startswith("closure_nn.commands"):
+                    assert not (targets & names), f"{path.name} imports command module(s) {targets & names}"

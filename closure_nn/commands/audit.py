@@ -10,9 +10,18 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
+from omegaconf import OmegaConf
+
+from ..audit.scoring import read_truth
+from ..audit.selfcheck import corrupted_campaign
 from ..caution import CAUTION
+from ..closures.registry import build_closure
 from ..config import load_config
+from ..data.table_io import read_table
+from ..data.validate import validate_table
 from ..physics.checks import InputError
+from ..pipeline.audit_stage import audit_table
+from ..run_folder import make_run_dir
 from .options import CLOSURE_HELP, add_closure_option, add_out_option, chosen_closure, deprecated
 
 
@@ -27,26 +36,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     add_out_option(p)
 
 
-def _stage(text: str) -> float:
-    """One progress line for a stage that may take a while; returns its start time."""
-    import time
-
-    print(text + " ...", flush=True)
-    return time.perf_counter()
-
-
-def _done(t0: float) -> None:
-    import time
-
-    print(f"  done in {time.perf_counter() - t0:.0f} s", flush=True)
-
-
 def _closure(args: argparse.Namespace, cfg, overrides: list[str]):
     """``--closure``; the old ``--closure-config YAML`` (a closure config file) still works, with a note."""
-    from omegaconf import OmegaConf
-
-    from ..closures.registry import build_closure
-
     path = getattr(args, "closure_config", None)
     if path is None or args.closure is not None:
         return chosen_closure(args.closure, cfg, overrides)
@@ -61,27 +52,10 @@ def _closure(args: argparse.Namespace, cfg, overrides: list[str]):
 
 
 def run(args: argparse.Namespace, overrides: list[str]) -> int:
-    from omegaconf import OmegaConf
-
-    from ..audit.dataset import AuditSettings, audit_dataset
-    from ..audit.health import HealthGridSpec, audit_closure
-    from ..audit.report import write_report
-    from ..audit.scoring import read_truth, recall_by_kind, score_against
-    from ..data.table_io import read_table
-    from ..data.validate import validate_table
-    from ..run_folder import make_run_dir, write_json
-
     cfg = load_config("audit", overrides)
-    try:
-        settings = AuditSettings.from_mapping(OmegaConf.to_container(cfg.checks, resolve=True))
-        spec = HealthGridSpec.from_mapping(OmegaConf.to_container(cfg.grid, resolve=True))
-    except ValueError as exc:
-        raise InputError(f"config audit: {exc}") from None
     closure = _closure(args, cfg, overrides)
     notes, truth, rejected = [], None, None
     if args.self_check:
-        from ..audit.selfcheck import corrupted_campaign
-
         df, truth = corrupted_campaign()
         notes.append("data: the invented corrupted campaign of closure_nn.audit.selfcheck (not a real facility)")
     else:
@@ -102,37 +76,15 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
         raise InputError(f"{args.data}: no valid rows to audit")
     run_dir = make_run_dir("audit", args.out or cfg.run_root)
     (run_dir / "config.yaml").write_text(OmegaConf.to_yaml(cfg))
-    if rejected is not None and len(rejected):
-        rejected.to_csv(run_dir / "rejected.csv", index=False)
-    t0 = _stage(f"dataset audit: momentum-balance residuals at the {len(df)} measured states and the closure's "
-                f"point solution of each row ({closure.label})")
-    res = audit_dataset(df, closure, settings, solver=dict(cfg.solver))
-    _done(t0)
-    score = by_kind = None
-    if truth is not None:
-        flagged = set(res.flagged_run_ids())
-        if rejected is not None and "run_id" in rejected:
-            flagged |= {str(r) for r in rejected["run_id"].dropna()}  # validation found them first
-        score = score_against(flagged, truth["run_id"]).as_dict()
-        by_kind = recall_by_kind(flagged, truth)
-    health = None
-    if not (args.no_health or not cfg.health):
-        t0 = _stage(f"closure health: positivity over the grid, smoothness sweeps of {spec.n_sweep} points, root maps of "
-                    f"{spec.n_map} x {spec.n_map} cells at {len(spec.roots_theta_deg)} inclinations, single-phase limits")
-        health = audit_closure(closure, spec)
-        _done(t0)
-    t0 = _stage("writing report.md, the tables and the figures")
-    report = write_report(run_dir, res, health, score, by_kind, notes)
-    _done(t0)
-    summary = {"audit": res.summary(), "score": score, "health": health.summary() if health else None,
-               "closure": closure.describe(), "caution": CAUTION}
-    write_json(run_dir / "summary.json", summary)
-    t = res.table
+    out = audit_table(df, closure, OmegaConf.to_container(cfg, resolve=True), run_dir, truth=truth, rejected=rejected,
+                      health=not (args.no_health or not cfg.health), notes=notes,
+                      say=lambda text: print(text, flush=True))
+    t, score, health = out.result.table, out.score, out.health
     print(f"{len(t)} rows audited with {closure.label}: {int(t['suspect'].sum())} suspect")
     if score is not None:
         print(f"against the corruption list: precision {score['precision']:.3f}, recall {score['recall']:.3f}")
     if health is not None:
         print(f"closure health: {health.verdict}" + "".join(f"\n  - {m}" for m in health.problems + health.warnings))
-    print(f"report: {report}")
+    print(f"report: {out.report}")
     print(CAUTION)
     return 0

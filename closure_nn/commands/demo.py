@@ -10,9 +10,10 @@ One run folder ``runs/demo-<time>/`` holds every stage:
    ``ensemble_members`` - 1 bootstrap members fine-tuned from the same pre-trained bundle on the same
    rows (trained side by side on ``ensemble_processes`` CPU processes);
 3. ``audit/``: consistency audit of the lab campaign against the learned closure, scored against
-   the documented corrupted rows, and the learned closure's health (`closure-nn audit`);
+   the documented corrupted rows, and the learned closure's health
+   (:func:`closure_nn.pipeline.audit_stage.audit_table`, as `closure-nn audit`);
 4. ``line/``: the invented Karvel Ridge tie-back marched with the baseline, the learned closure
-   and every ensemble member (`closure-nn line`);
+   and every ensemble member (:func:`closure_nn.line.run.run_line`, as `closure-nn line`);
 5. ``summary.md`` / ``summary.json``: what was found, printed at the end.
 """
 from __future__ import annotations
@@ -21,8 +22,23 @@ import argparse
 import time
 from pathlib import Path
 
+import torch
+from omegaconf import OmegaConf
+
+from ..audit.scoring import read_truth
 from ..caution import CAUTION
+from ..closures.ensemble import ClosureEnsemble, combine_ensembles
+from ..closures.registry import build_closure
 from ..config import load_config
+from ..line.definition import line_from_config
+from ..line.march import MarchSettings
+from ..line.run import run_line, write_line_run
+from ..pipeline.audit_stage import audit_table
+from ..pipeline.evaluate import make_synthetic, repo_path, run_evaluation
+from ..pipeline.fit import validate_lab
+from ..pipeline.stages import finetune, pretrain
+from ..report.training_plots import evaluation_figures
+from ..run_folder import make_run_dir, write_json
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -31,31 +47,21 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
                         "--runs is the old spelling")
 
 
-def _only_subdir(root: Path) -> Path:
-    (sub,) = [p for p in root.iterdir() if p.is_dir()]
-    return sub
-
-
 def _stage(title: str) -> float:
     print(f"\n=== {title}", flush=True)
     return time.perf_counter()
 
 
+def _members(closure) -> list:
+    return list(closure.members) if isinstance(closure, ClosureEnsemble) else [closure]
+
+
 def run(args: argparse.Namespace, overrides: list[str]) -> int:
-    import json
-
-    from omegaconf import OmegaConf
-
-    from ..closures.ensemble import combine_ensembles
-    from ..pipeline.evaluate import load_lab, make_synthetic, run_evaluation
-    from ..pipeline.stages import finetune, pretrain
-    from ..report.training_plots import evaluation_figures
-    from ..run_folder import make_run_dir, write_json
-    from . import audit as audit_cmd
-    from . import line as line_cmd
-
+    # every config composed once, here at the edge; the stages get objects, never each other's files
     cfg = load_config("demo", overrides)
-    ecfg = load_config("evaluate", list(cfg.evaluate))
+    ecfg = load_config("evaluate", list(cfg.evaluate_overrides))
+    acfg = load_config("audit", list(cfg.audit_overrides))
+    lcfg = load_config("line", list(cfg.line_overrides))
     run_dir = make_run_dir("demo", args.out or cfg.run_root)
     (run_dir / "config.yaml").write_text(OmegaConf.to_yaml(cfg))
     print(f"closure-nn demo on invented data; run folder: {run_dir}")
@@ -65,20 +71,20 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
 
     # 1. synthetic set -> pre-train -> fine-tune (the stages of `closure-nn fit`), held-out comparison
     t0 = _stage("1/4 synthetic set, pre-training, fine-tuning and held-out evaluation")
-    lab = load_lab(ecfg.lab)
+    lab = validate_lab(repo_path(ecfg.lab))
     synth = make_synthetic(ecfg, run_dir / "evaluation" / "synthetic")
     say(f"{len(synth.table)} synthetic points of the baseline ({synth.report['seconds']:.0f} s); pre-training")
     pre = pretrain(ecfg, synth.table, run_dir / "evaluation" / "train" / "pretrain", say=say)
     say("fine-tuning and scoring the random and the grouped split (side by side)")
-    ev = run_evaluation(ecfg, lab, pre, run_dir / "evaluation", figures=evaluation_figures)
+    ev = run_evaluation(ecfg, lab.rows, pre, run_dir / "evaluation", figures=evaluation_figures)
     kept = ev.pop("_kept")
-    rnd = ev["splits"]["random"]
-    learned_bundle = rnd["finetune"]["bundle"]
+    learned = kept["random"]["_closure"]
+    learned_bundle = ev["splits"]["random"]["finetune"]["bundle"]
     seconds["evaluation"] = time.perf_counter() - t0
 
     # 2. ensemble for the band: the evaluated closure plus N - 1 bootstrap members (seeds 1 .. N - 1),
     #    fine-tuned from the same pre-trained closure on the same training rows
-    members_dir = None
+    band = None
     n = int(cfg.ensemble_members)
     if n > 1:
         t0 = _stage(f"2/4 ensemble of {n}: the fine-tuned closure + {n - 1} bootstrap member(s)")
@@ -86,40 +92,42 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
         fm = finetune(ecfg, pre.closure, rows, run_dir / "ensemble" / "members", say=say,
                       **{"ensemble.members": n - 1, "ensemble.bootstrap": True, "seed": int(ecfg.experiment.seed) + 1,
                          "ensemble.processes": int(cfg.ensemble_processes)})
-        members_dir = str(combine_ensembles([learned_bundle, str(fm.bundle)], run_dir / "ensemble" / "band"))
+        band = ClosureEnsemble([learned, *_members(fm.closure)]).eval()
+        combine_ensembles([learned_bundle, str(fm.bundle)], run_dir / "ensemble" / "band")  # the band on disk
         seconds["ensemble"] = time.perf_counter() - t0
 
     # 3. consistency audit of the lab campaign against the learned closure
     t0 = _stage("3/4 consistency audit of the lab campaign (learned closure)")
-    (run_dir / "audit").mkdir()
-    audit_cmd.run(argparse.Namespace(data=str(ecfg.lab if Path(ecfg.lab).is_absolute() else _repo(ecfg.lab)),
-                                     closure=str(learned_bundle), closure_config=None, truth=None, self_check=False,
-                                     no_health=False, out=str(run_dir / "audit")), list(cfg.audit))
-    audit_summary = json.loads((_only_subdir(run_dir / "audit") / "summary.json").read_text())
+    truth = read_truth(repo_path(ecfg.experiment.corruptions)) if ecfg.experiment.corruptions else None
+    v = lab.validation
+    notes = [f"data: {lab.path} ({v.n_rows} rows read, {len(v.clean)} accepted, {len(v.rejected)} rejected by "
+             "validation; those are listed in rejected.csv)"]
+    if truth is not None:
+        notes.append(f"corruption list: {ecfg.experiment.corruptions} ({len(truth)} rows)")
+    audit = audit_table(lab.rows, learned, OmegaConf.to_container(acfg, resolve=True), run_dir / "audit",
+                        truth=truth, rejected=v.rejected, health=bool(acfg.health), notes=notes, say=say)
     seconds["audit"] = time.perf_counter() - t0
 
-    # 4. the line: baseline vs learned vs ensemble band
+    # 4. the line: baseline vs learned vs ensemble band. The learned line is the ensemble's mean
+    #    closure (geometric mean of the members' factors), so that the band brackets it; without an
+    #    ensemble, the evaluated fine-tuned closure
     t0 = _stage("4/4 line calculation: baseline vs learned closure vs ensemble band")
-    (run_dir / "line").mkdir()
-    # the learned line is the ensemble's mean closure (geometric mean of the members' factors), so
-    # that the band brackets it; without an ensemble, the evaluated fine-tuned closure
-    line_cmd.run(argparse.Namespace(line_file=None, closure=["baseline", f"learned={members_dir or learned_bundle}"],
-                                    ensemble=[members_dir] if members_dir else [], no_plot=False,
-                                    out=str(run_dir / "line")), list(cfg.line))
-    line_dir = _only_subdir(run_dir / "line")
-    line_summary = json.loads((line_dir / "summary.json").read_text())
+    line = line_from_config(lcfg.line, where="conf line")
+    closures = {"baseline": build_closure(lcfg.closure), "learned": band if band is not None else learned}
+    torch.set_num_threads(max(1, int(lcfg.get("threads", 1))))
+    march = run_line(line, closures, _members(band) if band is not None else [], solver=dict(lcfg.solver),
+                     settings=MarchSettings(**OmegaConf.to_container(lcfg.march)), say=say)
+    line_dir = run_dir / "line"
+    line_dir.mkdir()
+    write_line_run(march, line_dir, config_yaml=OmegaConf.to_yaml(lcfg), plot=bool(lcfg.plot))
     seconds["line"] = time.perf_counter() - t0
     seconds["total"] = time.perf_counter() - t_all
 
-    summary = _summary(ev, audit_summary, line_summary, seconds, run_dir, line_dir)
+    summary = _summary(ev, audit.summary, march.summary(), seconds, run_dir, line_dir)
     write_json(run_dir / "summary.json", summary["data"])
     (run_dir / "summary.md").write_text(summary["text"] + "\n")
     print("\n" + summary["text"])
     return 0
-
-
-def _repo(p: str) -> str:
-    return str(Path(__file__).resolve().parents[2] / p)
 
 
 def _pct(x: float) -> str:

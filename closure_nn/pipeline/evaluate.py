@@ -252,6 +252,7 @@ def evaluate_split(cfg: DictConfig, name: str, lab: pd.DataFrame, train_idx: np.
     out["measured_residuals"] = {k: v["summary"] for k, v in res.items()}
     if keep:
         out["_preds"], out["_test"], out["_res"], out["_rows"], out["_train"] = preds, test, res, rows, tr
+        out["_closure"] = ft.closure  # the fine-tuned closure itself (the demo marches and audits it)
         cols = {c: test[c] for c in ("run_id", "D", "theta", "vsl", "vsg", "holdup", "pgrad", "pattern") if c in test}
         tab = pd.DataFrame(cols).assign(corrupted=bad)
         for k, p in preds.items():
@@ -382,7 +383,7 @@ def run_evaluation(cfg: DictConfig, lab_df: pd.DataFrame, pretrained: StageResul
                           n_proc)
     timing["splits"] = time.perf_counter() - t0
     for (name, (_, _, info)), r in zip(splits.items(), results):
-        keep[name] = {k: r.pop(k) for k in ("_preds", "_test", "_res", "_rows", "_train")}
+        keep[name] = {k: r.pop(k) for k in ("_preds", "_test", "_res", "_rows", "_train", "_closure")}
         report["splits"][name] = {**info, **r}
     if int(cfg.kfold.k) >= 2 and cfg.holdout == "development":
         report["kfold"] = {"skipped": "holdout: development (k-fold would score rows of the test splits)"}

@@ -17,8 +17,8 @@ import pandas as pd
 
 from ..caution import CAUTION
 from ..data.result_tables import write_result_csv
-from .dataset import CHECKS, AuditResult
-from .health import HealthReport
+from ..audit.dataset import CHECKS, AuditResult
+from ..audit.health import HealthReport
 
 #: our palette: all rows, suspect rows, flag limits, reference line
 C_ALL, C_SUSPECT, C_LIMIT, C_REF = "#5b7fa6", "#b8420f", "#3d3d3d", "#8a8a8a"
