@@ -370,6 +370,14 @@ def solve_separated(
     """
     rs = find_roots(cond, closure, kind, entrainment, n_grid, xtol, chunk=chunk)
     pick, found = select_root(rs.roots, select)
+    return separated_solution(cond, closure, kind, entrainment, pick, found, rs)
+
+
+def separated_solution(cond: Conditions, closure: Callable, kind: str, entrainment, pick: torch.Tensor,
+                       found: torch.Tensor, rs: RootSet) -> SeparatedSolution:
+    """The :class:`SeparatedSolution` at the chosen roots ``pick`` (B,) [-]: implicit gradients
+    attached, state, friction, stresses and pgrad evaluated there (a finite placeholder, 0.5 of
+    frac_max, where ``found`` is False)."""
     pick = torch.where(found, pick, torch.full_like(pick, 0.5 * FRAC_MAX[kind]))
     frac = attach_implicit_grad(pick, residual_fn(cond, closure, kind, entrainment))
     s = local_state(cond, frac, kind, entrainment)

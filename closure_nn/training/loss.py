@@ -28,6 +28,7 @@ from ..physics.geometry import STRATIFIED
 from ..physics.holdup_roots import solve_separated
 from ..physics.local_state import LocalState, local_state
 from ..physics.momentum import FrictionFactors, shear_stresses
+from ..physics.near_root import solve_separated_near
 from ..physics.patterns import THETA_DOWN, THETA_STEEP, kh_gas_velocity
 from ..physics.vocabulary import CODE, DISPERSED_BUBBLE, INTERMITTENT, STRATIFIED_PATTERNS
 from ..physics.vocabulary import ANNULAR as ANNULAR_PATTERN
@@ -211,7 +212,21 @@ class ClosureLoss(nn.Module):
         if not data.any() or not (wt["data_holdup"] > 0 or wt["data_pgrad"] > 0):
             return 0
         c = batch_conditions(batch, data)
-        sol = solve_separated(c, closure, kind, select=cfg.select, n_grid=cfg.n_grid)
+        if cfg.select == "thinnest":
+            # the root refined from the level at the measured holdup (all roots where there is none,
+            # or where the row's configuration was predicted as another than it was stored with):
+            # the closure is evaluated at 9 levels per row instead of the 40 of the bracketing grid
+            same = batch["kind"][data] == KIND_CODE[kind]
+            frac_meas = batch.get("frac_measured")
+            if frac_meas is None:
+                meas = measured_state_rows(H[data]) & same
+                guess = torch.full_like(H[data], float("nan"))
+                guess[meas] = frac_from_holdup(H[data][meas], kind).detach()
+            else:
+                guess = torch.where(same, frac_meas[data], float("nan"))
+            sol = solve_separated_near(c, closure, guess, kind, n_grid=cfg.n_grid)
+        else:
+            sol = solve_separated(c, closure, kind, select=cfg.select, n_grid=cfg.n_grid)
         ok = sol.found
         hh, hp = has_h[data] & ok, has_p[data] & ok
         wd = batch["weight"][data]

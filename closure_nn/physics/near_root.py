@@ -1,0 +1,109 @@
+r"""The thinnest equilibrium root found from a guess: a cheap solve for the training loop.
+
+The all-roots solver (:func:`~closure_nn.physics.holdup_roots.solve_separated`) evaluates the
+closure on a 40-point bracketing grid for every state. In training the closure is a network and
+each row has a good guess of its root (the level at the measured holdup), so we evaluate the
+combined momentum residual F (Taitel & Dukler 1976, AIChE J. 22(1):47-55, eq. 3;
+:func:`~closure_nn.physics.momentum.combined_residual`) only on a 9-point stencil around the
+guess x0:
+
+.. math:: \{x_{lo},\ x_0 e^{-0.8},\ x_0 e^{-0.2},\ x_0 e^{-0.05},\ x_0,\ x_0 e^{0.05},\ x_0 e^{0.2},
+          \ x_0 e^{0.8},\ x_{hi}\}
+
+clipped to [x_lo, x_hi] = [1e-7, 1 - 1e-7] frac_max (the ends of the all-roots grid). F < 0 at
+x_lo and F > 0 at x_hi for positive phase rates (F -> -inf as the layer thins, +inf as the gas
+space closes), so the stencil always holds a sign change; its leftmost one is refined by
+Chandrupatla's (1997) method to ``xtol``, exactly as in the all-roots solver. Rows without a finite
+guess inside (x_lo, x_hi), or whose stencil shows no sign change (non-finite residuals), are solved
+by the all-roots solver.
+
+What it does not do: it counts no roots and searches no turns between stencil points. The
+leftmost sign change of the stencil is the thinnest root unless a root pair lies left of it or
+inside one stencil cell; there the result is a thicker root than ``select='thinnest'`` would give.
+Rows solved from the stencil report ``n_roots = 1`` (the root refined). Use it where a rare
+thicker root costs little (a training misfit term); the point solver and every result that feeds
+design use the all-roots solver. benchmarks/README.md gives the share of rows where the two
+differ on the training benchmark.
+
+Gradients: the returned ``frac`` carries implicit-function-theorem gradients, as in the
+all-roots solver (:mod:`closure_nn.physics.implicit`).
+"""
+from __future__ import annotations
+
+from typing import Callable
+
+import torch
+
+from .conditions import Conditions
+from .geometry import FRAC_MAX, STRATIFIED
+from .holdup_roots import (MAX_ROOTS, RootSet, SeparatedSolution, _chandrupatla, _subset_fn, find_roots,
+                           residual_fn, select_root, separated_solution)
+
+#: log offsets of the stencil points around the guess (both sides)
+STENCIL = (0.05, 0.2, 0.8)
+_EDGE = 1e-7  # stencil ends at _EDGE and 1 - _EDGE of frac_max (the ends of the all-roots grid)
+
+
+def stencil_roots(cond: Conditions, closure: Callable, kind: str, guess: torch.Tensor, entrainment=0.0,
+                  n_grid: int = 40, xtol: float = 1e-12, max_iter: int = 100) -> RootSet:
+    """Roots of a flat batch ``(B,)``: the leftmost sign change of the stencil around ``guess`` (B,)
+    [-] refined (``n_roots`` 1), or all roots (all-roots solver) where the stencil cannot be used.
+    No gradients are tracked."""
+    with torch.no_grad():
+        B = cond.shape[0]
+        fmax = FRAC_MAX[kind]
+        lo, hi = _EDGE * fmax, (1 - _EDGE) * fmax
+        E = torch.as_tensor(entrainment, dtype=torch.float64).expand(cond.shape)
+        g = guess.detach().to(torch.float64)
+        use = torch.isfinite(g) & (g > lo) & (g < hi)
+        x0 = torch.where(use, g, torch.full_like(g, 0.5 * fmax))
+        c = torch.tensor(STENCIL, dtype=torch.float64)
+        offsets = torch.cat([-c.flip(0), torch.zeros(1, dtype=torch.float64), c])
+        pts = (x0[:, None] * torch.exp(offsets)).clamp(lo, hi)
+        ends = torch.ones(B, 1, dtype=torch.float64)
+        pts = torch.cat([lo * ends, pts, hi * ends], dim=1)
+        F = residual_fn(cond.unsqueeze(-1), closure, kind, E.unsqueeze(-1))(pts)
+        sgn, valid = torch.signbit(F), torch.isfinite(F)
+        change = (sgn[:, 1:] != sgn[:, :-1]) & valid[:, 1:] & valid[:, :-1] & (pts[:, 1:] > pts[:, :-1])
+        has = change.any(dim=1) & use
+        roots = torch.full((B, MAX_ROOTS), float("nan"), dtype=torch.float64)
+        n_roots = torch.zeros(B, dtype=torch.int64)
+        unresolved = torch.zeros(B, dtype=torch.bool)
+        rows = has.nonzero(as_tuple=True)[0]
+        if rows.numel():
+            k = change[rows].to(torch.int8).argmax(dim=1)  # first sign change of each row
+            a, b = pts[rows, k], pts[rows, k + 1]
+            roots[rows, 0] = _chandrupatla(_subset_fn(cond[rows], E[rows], closure, kind), a, b,
+                                           F[rows, k], F[rows, k + 1], xtol, max_iter)
+            n_roots[rows] = 1
+        rest = (~has).nonzero(as_tuple=True)[0]
+        if rest.numel():
+            rs = find_roots(cond[rest], closure, kind, E[rest], n_grid, xtol, max_iter)
+            roots[rest], n_roots[rest], unresolved[rest] = rs.roots, rs.n_roots, rs.unresolved
+    return RootSet(roots=roots, n_roots=n_roots, unresolved=unresolved)
+
+
+def solve_separated_near(cond: Conditions, closure: Callable, guess: torch.Tensor, kind: str = STRATIFIED,
+                         entrainment=0.0, n_grid: int = 40, xtol: float = 1e-12) -> SeparatedSolution:
+    """The separated-flow equilibrium of a batch ``(B,)`` from a guess of each root (see module
+    docstring): the same :class:`~closure_nn.physics.holdup_roots.SeparatedSolution` as
+    ``solve_separated(..., select='thinnest')``, with implicit gradients.
+
+    Parameters
+    ----------
+    guess : tensor (B,)
+        A guess of h/D (stratified) or delta/D (annular) [-], e.g. the level at the measured holdup;
+        NaN where none (those rows get the all-roots solve).
+
+    >>> from closure_nn.physics.conditions import make_conditions
+    >>> from closure_nn.closures.baseline import BaselineClosure
+    >>> from closure_nn.physics.holdup_roots import solve_separated
+    >>> cond = make_conditions(vsl=[0.01, 0.1], vsg=[1.0, 3.0], D=0.05)
+    >>> near = solve_separated_near(cond, BaselineClosure(), torch.tensor([0.2, float("nan")], dtype=torch.float64))
+    >>> full = solve_separated(cond, BaselineClosure())
+    >>> bool(torch.allclose(near.frac, full.frac, rtol=0, atol=1e-11))
+    True
+    """
+    rs = stencil_roots(cond, closure, kind, guess, entrainment, n_grid, xtol)
+    pick, found = select_root(rs.roots, "thinnest")
+    return separated_solution(cond, closure, kind, entrainment, pick, found, rs)
