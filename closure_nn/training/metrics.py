@@ -47,8 +47,26 @@ def predict_rows(closure, t: dict[str, torch.Tensor], select: str = "thinnest") 
     return {"holdup": hold, "pgrad": pg, "found": found, "kind": kinds}
 
 
-def accuracy(closure, t: dict[str, torch.Tensor], select: str = "thinnest") -> dict[str, float]:
-    """Holdup and pgrad errors of ``closure`` on the tensor table ``t`` (see module docstring)."""
+def sample_rows(t: dict[str, torch.Tensor], max_rows: int | None, seed: int = 0) -> dict[str, torch.Tensor]:
+    """``t`` itself if it has at most ``max_rows`` rows (or ``max_rows`` is None), else a seeded
+    uniform sample of ``max_rows`` rows without replacement (the same rows for the same table size
+    and seed), in table order."""
+    n = t["vsl"].shape[0]
+    if max_rows is None or n <= max_rows:
+        return t
+    g = torch.Generator().manual_seed(seed)
+    idx = torch.randperm(n, generator=g)[:max_rows].sort().values
+    return {k: v[idx] for k, v in t.items()}
+
+
+def accuracy(closure, t: dict[str, torch.Tensor], select: str = "thinnest", max_rows: int | None = None,
+             seed: int = 0) -> dict[str, float]:
+    """Holdup and pgrad errors of ``closure`` on the tensor table ``t`` (see module docstring).
+
+    ``max_rows``: monitor on a seeded sample of at most this many rows (:func:`sample_rows`);
+    every row if None. The sampling error of an RMS over n rows is about RMS / sqrt(2 n)
+    (common practice), i.e. 1.6 % of it for n = 2,000."""
+    t = sample_rows(t, max_rows, seed)
     pred = predict_rows(closure, t, select)
     sep = pred["kind"] >= 0
     has_h, has_p = torch.isfinite(t["holdup"]) & sep, torch.isfinite(t["pgrad"]) & sep
