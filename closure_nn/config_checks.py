@@ -145,10 +145,10 @@ def _cross_checks(c: Mapping, table: Mapping[str, Rule], where: str, config_dir)
     a design name has its yaml file."""
     closures = [("closure", c.get("closure"))] + [(f"compare.{k}", v) for k, v in (c.get("compare") or {}).items()]
     for key, cl in closures:
-        if isinstance(cl, Mapping) and cl.get("kind") == "bundle" and (cl.get("path") in (None, "")):
+        if isinstance(cl, Mapping) and cl.get("source") == "bundle" and (cl.get("path") in (None, "")):
             eg = " (e.g. closure=learned closure.path=DIR)" if key == "closure" else ""
             raise InputError(f"{where}: {key}.path = null: expected the folder of a closure bundle when "
-                             f"{key}.kind = 'bundle'{eg}")
+                             f"{key}.source = 'bundle'{eg}")
     space = ((c.get("fit") or {}).get("search") or {}).get("space") or {}
     for key, spec in space.items():
         rule = _rule_for(table, key)

@@ -38,7 +38,7 @@ def _under(prefix: str, table: Mapping[str, Rule]) -> dict[str, Rule]:
 #: conf/closure/*.yaml (closure_nn.closures.registry.build_closure); the path rule of ``bundle``
 #: is in :func:`_cross_checks`
 CLOSURE = {
-    "kind": Choice(("baseline", "bundle")),
+    "source": Choice("closure_nn.closures.registry:SOURCES"),
     "wall": Choice("closure_nn.closures.correlations:WALL", what="wall friction correlation"),
     "interface": Choice("closure_nn.closures.correlations:INTERFACE", what="interface friction correlation"),
     "annular_interface": Choice("closure_nn.closures.correlations:INTERFACE", what="interface friction correlation"),

@@ -80,7 +80,7 @@ CASES = [
     ("point-unknown-override", POINT + ["nosuchkey=1"], 2, ["config point", "nosuchkey"]),
     ("point-solver-rule", POINT + ["solver.select=bogus"], 2, ["solver.select = 'bogus'", "thinnest, thickest"]),
     ("point-solver-grid", POINT + ["solver.n_grid=abc"], 2, ["solver.n_grid = 'abc'", "whole number >= 4"]),
-    ("point-bundle-no-path", POINT + ["closure.kind=bundle"], 2, ["closure.path", "closure.kind = 'bundle'"]),
+    ("point-bundle-no-path", POINT + ["closure.source=bundle"], 2, ["closure.path", "closure.source = 'bundle'"]),
     ("point-bundle-missing", POINT + ["closure=learned", "closure.path=no_bundle"], 2, ["no_bundle", "no such closure bundle"]),
     # batch: a conditions table
     ("batch-missing", ["batch", "nofile.csv"], 2, ["nofile.csv: not found"]),

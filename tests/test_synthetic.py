@@ -198,7 +198,7 @@ def test_synth_command_writes_run_folder(tmp_path, capsys):
     res = validate_table(read_table(run / "synthetic.csv"))
     assert len(res.clean) == 120 and len(res.rejected) == 0
     cfg = OmegaConf.load(run / "config.yaml")
-    assert cfg.n == 120 and cfg.seed == 2 and cfg.design.name == "demo_loop" and cfg.closure.kind == "baseline"
+    assert cfg.n == 120 and cfg.seed == 2 and cfg.design.name == "demo_loop" and cfg.closure.source == "baseline"
     out = capsys.readouterr().out
     assert "points per flow pattern" in out and "CAUTION" in out
 

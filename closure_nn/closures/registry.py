@@ -8,13 +8,24 @@ from .base import Closure
 from .baseline import BaselineClosure
 
 
-def build_closure(cfg: Mapping) -> Closure:
-    """``kind: baseline`` -> :class:`BaselineClosure`; ``kind: bundle`` -> a trained closure bundle.
+#: where a closure config's closure comes from (the key ``source`` of conf/closure/*.yaml)
+SOURCES = ("baseline", "bundle")
 
-    >>> build_closure({"kind": "baseline", "wall": "churchill", "interface": "smooth"}).label
+
+def closure_source(cfg: Mapping) -> str:
+    """``cfg['source']`` (default ``'baseline'``). Closure files written before 0.3.0 named it
+    ``kind``; that spelling is still read."""
+    return str(cfg.get("source", cfg.get("kind", "baseline")))
+
+
+def build_closure(cfg: Mapping) -> Closure:
+    """``source: baseline`` -> :class:`BaselineClosure`; ``source: bundle`` -> a saved closure
+    (a bundle or an ensemble folder, ``path``).
+
+    >>> build_closure({"source": "baseline", "wall": "churchill", "interface": "smooth"}).label
     'baseline(wall=churchill, interface=smooth, annular=wallis)'
     """
-    kind = cfg.get("kind", "baseline")
+    kind = closure_source(cfg)
     if kind == "baseline":
         try:
             return BaselineClosure(
@@ -28,4 +39,4 @@ def build_closure(cfg: Mapping) -> Closure:
         from .loading import load_saved_closure  # torch is imported only for a saved closure
 
         return load_saved_closure(cfg["path"])
-    raise InputError(f"closure.kind = {kind!r}; expected 'baseline' or 'bundle'")
+    raise InputError(f"closure.source = {kind!r}; expected 'baseline' or 'bundle'")

@@ -15,7 +15,7 @@ from omegaconf import OmegaConf
 from ..audit.scoring import read_truth
 from ..audit.selfcheck import corrupted_campaign
 from ..caution import CAUTION
-from ..closures.registry import build_closure
+from ..closures.registry import build_closure, closure_source
 from ..config import load_config
 from ..data.table_io import read_table
 from ..data.validate import validate_table
@@ -45,7 +45,7 @@ def _closure(args: argparse.Namespace, cfg, overrides: list[str]):
     if not p.exists():
         raise InputError(f"--closure-config {p}: no such file")
     ccfg = OmegaConf.load(p)
-    spec = "baseline" if ccfg.get("kind", "baseline") == "baseline" else ccfg.get("path", "PATH")
+    spec = "baseline" if closure_source(ccfg) == "baseline" else ccfg.get("path", "PATH")
     closure = build_closure(ccfg)
     deprecated(f"--closure-config {path}", f"--closure {spec}")  # after loading: a failure stays one line
     return closure

@@ -17,6 +17,7 @@ from pathlib import Path
 
 from ..caution import CAUTION
 from ..config import load_config
+from ..closures.registry import build_closure, closure_source
 from ..physics.checks import InputError
 from .options import CLOSURE_HELP, add_out_option, deprecated, load_members
 from .options import load as load_closure_spec
@@ -37,9 +38,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def _closure_from_spec(spec: str, cfg):
-    from ..closures.registry import build_closure
-
-    if spec == "baseline" and cfg.closure.get("kind") == "baseline":
+    if spec == "baseline" and closure_source(cfg.closure) == "baseline":
         return build_closure(cfg.closure)  # closure.wall=... overrides apply
     return load_closure_spec(spec)
 
@@ -60,7 +59,6 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     import torch
     from omegaconf import OmegaConf
 
-    from ..closures.registry import build_closure
     from ..line.definition import line_from_config
     from ..line.march import MarchSettings
     from ..line.run import run_line, write_line_run
@@ -82,13 +80,13 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     closures = {}
     old_spelling = None
     if not args.closure:
-        if cfg.closure.get("kind") == "bundle":  # the old spelling closure=learned closure.path=PATH
+        if closure_source(cfg.closure) == "bundle":  # the old spelling closure=learned closure.path=PATH
             if cfg.closure.get("path") is None:
                 raise InputError("closure=learned needs closure.path=PATH; write --closure PATH instead")
             old_spelling = str(cfg.closure.path)
             closures[_default_name(old_spelling)] = load_closure_spec(old_spelling)
         else:
-            closures[str(cfg.closure.get("kind", "closure"))] = build_closure(cfg.closure)
+            closures[closure_source(cfg.closure)] = build_closure(cfg.closure)
         for name, ccfg in (cfg.get("compare") or {}).items():
             closures[str(name)] = build_closure(ccfg)
     for item in args.closure:

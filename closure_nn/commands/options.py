@@ -18,6 +18,7 @@ import argparse
 import sys
 from pathlib import Path
 
+from ..closures.registry import build_closure, closure_source
 from ..physics.checks import InputError
 
 #: the word that names the mechanistic baseline (as in :func:`closure_nn.api.load_closure`)
@@ -90,7 +91,7 @@ def load_members(spec: str | Path) -> list:
 
 
 def _overrides_choose_closure(overrides: list[str]) -> bool:
-    return any(o.split("=", 1)[0].lstrip("+~") in ("closure", "closure.path", "closure.kind") and
+    return any(o.split("=", 1)[0].lstrip("+~") in ("closure", "closure.path", "closure.source") and
                o.split("=", 1)[-1] != BASELINE for o in overrides)
 
 
@@ -100,15 +101,13 @@ def chosen_closure(spec: str | None, cfg, overrides: list[str]):
     ``--closure baseline`` is the config's baseline (``closure.wall=...`` overrides apply).
     The old spelling ``closure=learned closure.path=PATH`` still works with a note.
     """
-    from ..closures.registry import build_closure
-
     if spec is not None:
-        if spec == BASELINE and cfg.closure.get("kind", BASELINE) == BASELINE:
+        if spec == BASELINE and closure_source(cfg.closure) == BASELINE:
             return build_closure(cfg.closure)
         return load(spec)
     if _overrides_choose_closure(overrides):
-        path = cfg.closure.get("path") if cfg.closure.get("kind") == "bundle" else None
-        if cfg.closure.get("kind") == "bundle" and path is None:
+        path = cfg.closure.get("path") if closure_source(cfg.closure) == "bundle" else None
+        if closure_source(cfg.closure) == "bundle" and path is None:
             raise InputError("closure=learned needs closure.path=PATH; write --closure PATH instead")
         closure = load(str(path)) if path is not None else build_closure(cfg.closure)
         # the note after loading, so that a failure stays one line on stderr

@@ -46,6 +46,7 @@ from ..closures.bundle import save_bundle
 from ..closures.ensemble import ClosureEnsemble, save_ensemble
 from ..closures.loading import load_saved_closure
 from ..closures.neural import NeuralClosure
+from ..closures.registry import closure_source
 from ..data.features import FeatureScaler, TrainingDomain, state_features, table_states
 from ..data.table_io import read_table
 from ..physics.checks import InputError
@@ -73,8 +74,8 @@ def _provenance(name: str, path, df: pd.DataFrame) -> dict:
 def baseline_kwargs(cfg: DictConfig) -> dict:
     """Keyword arguments of the config's baseline closure (``closure`` group, kind baseline)."""
     c = OmegaConf.to_container(cfg.closure, resolve=True)
-    if c.get("kind", "baseline") != "baseline":
-        raise InputError(f"train: closure.kind must be 'baseline' (the model's baseline), got {c.get('kind')!r}")
+    if closure_source(c) != "baseline":
+        raise InputError(f"train: closure.source must be 'baseline' (the model's baseline), got {closure_source(c)!r}")
     return {k: c[k] for k in BASELINE_KEYS if k in c}
 
 
