@@ -236,7 +236,8 @@ def _grid_pass(cond: Conditions, E: torch.Tensor, closure: Callable, kind: str, 
     index of the middle point) with ``(Fa, Fm, Fc)`` at grid points j-1, j, j+1.
     """
     b = cond.shape[0]
-    Fg = residual_fn(cond.unsqueeze(-1), closure, kind, E.unsqueeze(-1))(grid.expand(b, -1))
+    # the grid as one row (1, n_grid): the geometry of the levels is computed once per chunk
+    Fg = residual_fn(cond.unsqueeze(-1), closure, kind, E.unsqueeze(-1))(grid.unsqueeze(0)).expand(b, -1)
     sgn = torch.signbit(Fg)
     valid = torch.isfinite(Fg)
     change = (sgn[:, 1:] != sgn[:, :-1]) & valid[:, 1:] & valid[:, :-1]
