@@ -117,7 +117,7 @@ TRAIN = {
     "data.train": Text("a table path (CSV or Parquet)", nullable=True),
     "data.val": OPT_PATH,
     "data.val_fraction": FRACTION,
-    "data.unknown_pattern": Choice("closure_nn.data.features:UNKNOWN_PATTERN_RULES"),
+    "data.unknown_pattern": Choice("closure_nn.data.configurations:UNKNOWN_PATTERN_RULES"),
     "data.replay": ListOf(PATH),
     "data.replay_fraction": Number(0, 1, open_lo=True),
     "data.replay_weight": NONNEG,

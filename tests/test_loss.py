@@ -159,7 +159,7 @@ def test_rows_of_unknown_pattern_take_the_predicted_configuration():
     """``unknown_pattern='predicted'``: a row without a pattern feeds the terms a row observed in
     the pattern the closure predicts would feed (definition in the module docstring); the
     predicted pattern is the point solver's (Taitel & Dukler 1976 near horizontal)."""
-    from closure_nn.data.features import KIND_PREDICTED, kind_codes
+    from closure_nn.data.configurations import RowConfiguration, configuration_codes
     from closure_nn.physics.point import solve_points
     from closure_nn.physics.vocabulary import PATTERNS
 
@@ -176,8 +176,8 @@ def test_rows_of_unknown_pattern_take_the_predicted_configuration():
     w = {**ALL_ON, "pattern": 0.0}
     t_obs = table_tensors(df)
     t_unk = table_tensors(df.assign(pattern=np.nan), unknown_pattern="predicted")
-    assert bool((t_unk["kind"] == KIND_PREDICTED).all())
-    assert kind_codes(pd.Series([np.nan, "intermittent"]), 2, "predicted").tolist() == [KIND_PREDICTED, -1]
+    assert bool((t_unk["kind"] == RowConfiguration.PREDICTED).all())
+    assert configuration_codes(pd.Series([np.nan, "intermittent"]), 2, "predicted").tolist() == [RowConfiguration.PREDICTED, -1]
     loss = ClosureLoss(LossSettings(weights=w))
     total_o, terms_o, counts_o = loss(net, t_obs)
     total_u, terms_u, counts_u = loss(net, t_unk)
@@ -194,10 +194,10 @@ def test_rows_of_unknown_pattern_take_the_predicted_configuration():
     np.testing.assert_allclose(r_u["r_gas"], r_o["r_gas"], rtol=1e-9, equal_nan=True)
     np.testing.assert_allclose(r_u["r_liquid"], r_o["r_liquid"], rtol=1e-9, equal_nan=True)
     # the mapping pattern -> configuration, on the states of the classify() example
-    from closure_nn.data.features import predicted_kind_codes
+    from closure_nn.data.configurations import predicted_configuration_codes
     from closure_nn.physics.conditions import make_conditions
     c = make_conditions(vsl=[0.01, 0.3, 0.1], vsg=[0.5, 1.0, 30.0], D=0.05)
-    assert predicted_kind_codes(c, BaselineClosure("taitel_dukler", "smooth")).tolist() == [0, -1, 1]
+    assert predicted_configuration_codes(c, BaselineClosure("taitel_dukler", "smooth")).tolist() == [0, -1, 1]
     # the skip rule leaves the same rows out of every term
     _, _, counts_s = loss(net, table_tensors(df.assign(pattern=np.nan), unknown_pattern="skip"))
     assert counts_s["data_holdup"] == 0 and counts_s["phase_residual"] == 0
@@ -278,16 +278,17 @@ def test_unknown_loss_term_is_rejected():
 
 
 def test_clear_rule_leaves_out_rows_of_unknown_pattern_near_a_transition():
-    """``unknown_pattern='predicted_clear'`` (closure_nn.data.features.clear_kind_codes): a row
+    """``unknown_pattern='predicted_clear'`` (closure_nn.data.configurations.clear_configuration_codes): a row
     without a pattern takes the predicted configuration only where that prediction survives a
     +-20 % change of either superficial velocity. Checked across the Kelvin-Helmholtz boundary of
     Taitel & Dukler (1976) with the baseline, located here by bisection on v_SG: within 10 % of
     it the row is left out, at half and twice its v_SG it is not."""
-    from closure_nn.data.features import KIND_PREDICTED_CLEAR, clear_kind_codes, kind_codes, predicted_kind_codes
+    from closure_nn.data.configurations import (RowConfiguration, clear_configuration_codes, configuration_codes,
+                                                predicted_configuration_codes)
     from closure_nn.physics.conditions import make_conditions
 
     base = BaselineClosure("taitel_dukler", "smooth")
-    kind = lambda vsg: int(predicted_kind_codes(make_conditions(vsl=[0.05], vsg=[vsg], D=0.05), base)[0])
+    kind = lambda vsg: int(predicted_configuration_codes(make_conditions(vsl=[0.05], vsg=[vsg], D=0.05), base)[0])
     lo, hi = 0.5, 30.0
     assert kind(lo) == 0 and kind(hi) != 0
     for _ in range(40):
@@ -295,16 +296,16 @@ def test_clear_rule_leaves_out_rows_of_unknown_pattern_near_a_transition():
         lo, hi = (mid, hi) if kind(mid) == 0 else (lo, mid)
     vsg = hi * np.array([0.5, 0.9, 1.1, 2.0])
     c = make_conditions(vsl=np.full(4, 0.05), vsg=vsg, D=0.05)
-    pred = predicted_kind_codes(c, base).tolist()
+    pred = predicted_configuration_codes(c, base).tolist()
     assert pred[:2] == [0, 0] and pred[2] == pred[3] != 0
-    assert clear_kind_codes(c, base).tolist() == [0, -1, -1, pred[3]]
-    assert kind_codes(pd.Series([np.nan, "annular"]), 2, "predicted_clear").tolist() == [KIND_PREDICTED_CLEAR, 1]
+    assert clear_configuration_codes(c, base).tolist() == [0, -1, -1, pred[3]]
+    assert configuration_codes(pd.Series([np.nan, "annular"]), 2, "predicted_clear").tolist() == [RowConfiguration.PREDICTED_CLEAR, 1]
     # in the loss: the rows left out feed no term; the clear ones feed the terms of their kind
     df = make_table(BaselineClosure(), 4, seed=13).assign(vsl=0.05, vsg=vsg, D=0.05, theta=0.0, holdup=np.nan,
                                                            pgrad=50.0, pattern=np.nan)
     net = fitted_model(make_table(BaselineClosure(), 10, seed=11))
     loss = ClosureLoss(LossSettings(weights={**ALL_ON, "pattern": 0.0}))
     _, _, counts = loss(net, table_tensors(df, unknown_pattern="predicted_clear"))
-    clear_net = clear_kind_codes(c, net)
+    clear_net = clear_configuration_codes(c, net)
     assert int((clear_net >= 0).sum()) > 0
     assert counts["data_pgrad"] + counts["no_root"] == int((clear_net >= 0).sum())

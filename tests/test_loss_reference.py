@@ -17,7 +17,8 @@ import pytest
 import torch
 
 from closure_nn.closures.neural import NeuralClosure
-from closure_nn.data.features import KIND_CODE, KINDS, FeatureScaler, frac_from_holdup, state_features
+from closure_nn.data.configurations import CONFIGURATION_CODE, SEPARATED_CONFIGURATIONS
+from closure_nn.data.features import FeatureScaler, frac_from_holdup, state_features
 from closure_nn.physics.conditions import FIELD_NAMES, Conditions
 from closure_nn.physics.groups import closure_features
 from closure_nn.physics.local_state import local_state
@@ -77,8 +78,8 @@ def reference_terms(net: NeuralClosure, t: dict, cfg: LossSettings) -> dict[str,
     sig_p = cfg.pgrad_rel_sd * torch.nan_to_num(P).abs() + cfg.pgrad_sd_floor  # no pgrad_sd given
     lam = torch.tensor([cfg.prior_factors[k] for k in ("f_wl", "f_wg", "f_i")], dtype=torch.float64)
     parts: dict[str, list[torch.Tensor]] = {k: [] for k in ("phase_residual", "combined_residual", "prior", "smooth")}
-    for kind in KINDS:
-        rows = (t["kind"] == KIND_CODE[kind]) & torch.isfinite(H) & (H > 0) & (H < 1)
+    for kind in SEPARATED_CONFIGURATIONS:
+        rows = (t["kind"] == CONFIGURATION_CODE[kind]) & torch.isfinite(H) & (H > 0) & (H < 1)
         c = Conditions(**{k: t[k][rows] for k in FIELD_NAMES})
         s = local_state(c, frac_from_holdup(H[rows], kind), kind)
         tau = shear_stresses(s, net(s))
@@ -162,7 +163,7 @@ def test_smoothness_alone_equals_the_shared_evaluation():
     df = invented_table(40, seed=2)
     net = model(df, inputs=WALL_ONLY)
     t = table_tensors(df)
-    rows = t["kind"] == KIND_CODE["stratified"]
+    rows = t["kind"] == CONFIGURATION_CODE["stratified"]
     s = local_state(Conditions(**{k: t[k][rows] for k in FIELD_NAMES}), frac_from_holdup(t["holdup"][rows], "stratified"),
                     "stratified")
     a = smoothness(net, s)
@@ -177,7 +178,7 @@ def test_evaluation_with_input_leaves_keeps_the_state_gradient():
     df = invented_table(30, seed=4)
     net = model(df, inputs=WALL_ONLY)
     t = table_tensors(df)
-    rows = t["kind"] == KIND_CODE["stratified"]
+    rows = t["kind"] == CONFIGURATION_CODE["stratified"]
     frac = frac_from_holdup(t["holdup"][rows], "stratified").requires_grad_(True)
     s = local_state(Conditions(**{k: t[k][rows] for k in FIELD_NAMES}), frac, "stratified")
     (d_plain,) = torch.autograd.grad(torch.stack(tuple(net(s)), dim=-1).sum(), frac, retain_graph=True)

@@ -33,123 +33,27 @@ import torch
 
 from ..closures.neural import domain_mask
 from ..physics.conditions import Conditions
-from ..physics.geometry import ANNULAR, STRATIFIED, h_from_holdup
+from ..physics.geometry import STRATIFIED, h_from_holdup
 from ..physics.groups import FEATURE_NAMES, closure_features
 from ..physics.holdup_roots import solve_separated
 from ..physics.local_state import LocalState, local_state
-from ..physics.vocabulary import ANNULAR as ANNULAR_PATTERN, STRATIFIED_PATTERNS
+from .configurations import (CONFIGURATION_CODE, SEPARATED_CONFIGURATIONS, RowConfiguration,
+                             configuration_codes, resolve_configurations)
 from .schema import to_conditions
 
-#: integer code of the separated configuration of a row (-1: not a separated-flow row)
-KIND_CODE = {STRATIFIED: 0, ANNULAR: 1}
-KINDS = (STRATIFIED, ANNULAR)
-#: kind code of a row whose configuration is decided by a closure's predicted pattern
-#: (``unknown_pattern='predicted'``; :func:`resolve_kinds`)
-KIND_PREDICTED = -2
-#: the same, but the row is used only where that pattern is clear of every transition
-#: (``unknown_pattern='predicted_clear'``; :func:`clear_kind_codes`)
-KIND_PREDICTED_CLEAR = -3
-UNKNOWN_PATTERN_RULES = ("skip", "stratified", "predicted", "predicted_clear")
-#: relative change of either superficial velocity that must leave a clear prediction unchanged [-]
-#: (our choice: flow-pattern transition criteria are uncertain by tens of percent in velocity when
-#: compared with data, common practice; a label near a boundary is itself often in doubt)
-CLEAR_MARGIN = 0.2
+# Names of the separated configuration of a row: closure_nn.data.configurations. The spellings
+# below are kept while training/metrics.py and training/loss_batch.py move to the new names.
+KIND_CODE = CONFIGURATION_CODE
+KINDS = SEPARATED_CONFIGURATIONS
+KIND_PREDICTED = RowConfiguration.PREDICTED
+KIND_PREDICTED_CLEAR = RowConfiguration.PREDICTED_CLEAR
+kind_codes = configuration_codes
+resolve_kinds = resolve_configurations
 
 
 def table_conditions(df: pd.DataFrame) -> Conditions:
     """Conditions ``(N,)`` of an SI training table (:func:`closure_nn.data.schema.to_conditions`)."""
     return to_conditions(df, check=True, where=str(df.attrs.get("path", "training table")))
-
-
-def kind_codes(patterns: pd.Series | None, n: int, unknown_pattern: str = "skip") -> torch.Tensor:
-    """Separated configuration per row, ``(N,)`` int64 codes of :data:`KIND_CODE` or -1.
-
-    ``stratified_smooth``/``stratified_wavy`` -> stratified, ``annular`` -> annular, any other
-    pattern -> -1. A missing pattern (NaN / empty) follows ``unknown_pattern``: ``'skip'`` (-1,
-    the row feeds no separated-flow term), ``'stratified'``, ``'predicted'``
-    (:data:`KIND_PREDICTED`: the configuration of the pattern that a closure predicts for the
-    row, decided when the row is used, :func:`resolve_kinds`; as the point solver does when it
-    scores such a row) or ``'predicted_clear'`` (:data:`KIND_PREDICTED_CLEAR`: the same where
-    that prediction is clear of the transitions, else skipped; :func:`clear_kind_codes`).
-    """
-    if unknown_pattern not in UNKNOWN_PATTERN_RULES:
-        raise ValueError(f"unknown_pattern must be one of {UNKNOWN_PATTERN_RULES}, got {unknown_pattern!r}")
-    if patterns is None:
-        patterns = pd.Series([None] * n)
-    out = np.full(n, -1, dtype=np.int64)
-    for i, p in enumerate(patterns.tolist()):
-        if p is None or (isinstance(p, float) and np.isnan(p)) or p == "":
-            out[i] = {"stratified": KIND_CODE[STRATIFIED], "predicted": KIND_PREDICTED,
-                      "predicted_clear": KIND_PREDICTED_CLEAR}.get(unknown_pattern, -1)
-        elif p in STRATIFIED_PATTERNS:
-            out[i] = KIND_CODE[STRATIFIED]
-        elif p == ANNULAR_PATTERN:
-            out[i] = KIND_CODE[ANNULAR]
-    return torch.as_tensor(out)
-
-
-def predicted_kind_codes(cond: Conditions, closure, select: str = "thinnest", n_grid: int = 40) -> torch.Tensor:
-    """Kind codes ``(N,)`` of the pattern ``closure`` predicts for ``cond`` (no gradient).
-
-    The pattern is the point solver's (:func:`closure_nn.physics.patterns.classify` at the
-    closure's stratified equilibrium: Taitel & Dukler 1976 near horizontal, Taitel, Barnea &
-    Dukler 1980 upward from 20 deg); stratified smooth/wavy -> stratified, annular -> annular,
-    any other pattern (or no stratified root near horizontal) -> -1.
-    """
-    from ..physics.patterns import classify
-    from ..physics.vocabulary import CODE
-
-    with torch.no_grad():
-        code = classify(cond, solve_separated(cond, closure, STRATIFIED, select=select, n_grid=n_grid))
-    out = torch.full(code.shape, -1, dtype=torch.int64)
-    for p in STRATIFIED_PATTERNS:
-        out = torch.where(code == CODE[p], KIND_CODE[STRATIFIED], out)
-    return torch.where(code == CODE[ANNULAR_PATTERN], KIND_CODE[ANNULAR], out)
-
-
-def clear_kind_codes(cond: Conditions, closure, select: str = "thinnest", n_grid: int = 40,
-                     margin: float = CLEAR_MARGIN) -> torch.Tensor:
-    """Kind codes ``(N,)`` of :func:`predicted_kind_codes` where the prediction is clear, else -1.
-
-    Clear: the kind stays the same when v_SL or v_SG alone is scaled by ``1 - margin`` or
-    ``1 + margin`` (four neighbours, solved in one batch). Rows without an observed pattern near
-    a predicted transition are thereby left out of training instead of being fitted in a
-    configuration they may not have: a truly intermittent row fitted as stratified pulls the
-    level down, which makes the stratified state more stable (Taitel & Dukler 1976), i.e. the
-    misfit pushes the predicted pattern the wrong way.
-
-    >>> from closure_nn.physics.conditions import make_conditions
-    >>> from closure_nn.closures.baseline import BaselineClosure
-    >>> c = make_conditions(vsl=[0.01, 0.3, 0.1], vsg=[0.5, 1.0, 30.0], D=0.05)
-    >>> clear_kind_codes(c, BaselineClosure('taitel_dukler', 'smooth')).tolist()
-    [0, -1, 1]
-    """
-    flat = lambda t: torch.broadcast_to(t, cond.shape).reshape(1, -1)  # noqa: E731
-    n = flat(cond.vsl).shape[1]
-    scale_l = torch.tensor([1.0, 1.0 - margin, 1.0 + margin, 1.0, 1.0], dtype=cond.vsl.dtype)[:, None]
-    scale_g = torch.tensor([1.0, 1.0, 1.0, 1.0 - margin, 1.0 + margin], dtype=cond.vsl.dtype)[:, None]
-    five = cond.map(lambda t: flat(t).expand(5, n).reshape(-1))
-    five = five.with_(vsl=(scale_l * flat(cond.vsl)).reshape(-1), vsg=(scale_g * flat(cond.vsg)).reshape(-1))
-    codes = predicted_kind_codes(five, closure, select, n_grid).reshape(5, n)
-    same = (codes == codes[0]).all(dim=0)
-    return torch.where(same, codes[0], torch.full_like(codes[0], -1)).reshape(cond.shape)
-
-
-def resolve_kinds(kinds: torch.Tensor, cond: Conditions, closure, select: str = "thinnest",
-                  n_grid: int = 40) -> torch.Tensor:
-    """``kinds (N,)`` with every :data:`KIND_PREDICTED` entry replaced by the kind of the pattern
-    ``closure`` predicts for that row (:func:`predicted_kind_codes`) and every
-    :data:`KIND_PREDICTED_CLEAR` entry by :func:`clear_kind_codes`; unchanged (the same tensor)
-    when there is none. ``cond`` are the conditions of all N rows."""
-    pred, clear = kinds == KIND_PREDICTED, kinds == KIND_PREDICTED_CLEAR
-    if not bool(pred.any() or clear.any()):
-        return kinds
-    out = kinds.clone()
-    if pred.any():
-        out[pred] = predicted_kind_codes(cond[pred], closure, select, n_grid)
-    if clear.any():
-        out[clear] = clear_kind_codes(cond[clear], closure, select, n_grid)
-    return out
 
 
 def frac_from_holdup(holdup: torch.Tensor, kind: str) -> torch.Tensor:
@@ -174,14 +78,14 @@ def table_states(df: pd.DataFrame, baseline, unknown_pattern: str = "skip") -> l
     configuration the ``baseline`` predicts for it. No gradients.
     """
     cond = table_conditions(df)
-    kinds = kind_codes(df["pattern"] if "pattern" in df.columns else None, len(df), unknown_pattern)
-    kinds = resolve_kinds(kinds, cond, baseline)
+    kinds = configuration_codes(df["pattern"] if "pattern" in df.columns else None, len(df), unknown_pattern)
+    kinds = resolve_configurations(kinds, cond, baseline)
     holdup = torch.tensor(pd.to_numeric(df["holdup"], errors="coerce").to_numpy(dtype=np.float64)) \
         if "holdup" in df.columns else torch.full((len(df),), float("nan"), dtype=torch.float64)
     states: list[LocalState] = []
     with torch.no_grad():
-        for kind in KINDS:
-            sel = kinds == KIND_CODE[kind]
+        for kind in SEPARATED_CONFIGURATIONS:
+            sel = kinds == CONFIGURATION_CODE[kind]
             meas = sel & torch.isfinite(holdup)
             if meas.any():
                 states.append(local_state(cond[meas], frac_from_holdup(holdup[meas], kind), kind))

@@ -28,3 +28,12 @@ CODE = {name: i for i, name in enumerate(PATTERNS)}
 #: patterns whose holdup comes from the separated-flow (two-fluid) equilibrium
 SEPARATED = (STRATIFIED_SMOOTH, STRATIFIED_WAVY, ANNULAR)
 STRATIFIED_PATTERNS = (STRATIFIED_SMOOTH, STRATIFIED_WAVY)
+
+# Separated configurations: the geometry in which the two-fluid balance is solved (a layer or a
+# film; closure_nn.physics.geometry), distinct from the flow pattern an observer reports.
+CONFIG_STRATIFIED = "stratified"
+CONFIG_ANNULAR = "annular"
+CONFIGURATIONS: tuple[str, ...] = (CONFIG_STRATIFIED, CONFIG_ANNULAR)
+#: the separated configuration of each pattern that has one (the others are not separated flow)
+CONFIGURATION_OF_PATTERN = {STRATIFIED_SMOOTH: CONFIG_STRATIFIED, STRATIFIED_WAVY: CONFIG_STRATIFIED,
+                            ANNULAR: CONFIG_ANNULAR}

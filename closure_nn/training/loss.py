@@ -23,7 +23,8 @@ import torch
 from torch import nn
 
 from ..closures.neural import OUTPUT_NAMES, NeuralClosure, NeuralEvaluation
-from ..data.features import KIND_CODE, KINDS, frac_from_holdup
+from ..data.configurations import CONFIGURATION_CODE, SEPARATED_CONFIGURATIONS
+from ..data.features import frac_from_holdup
 from ..physics.geometry import STRATIFIED
 from ..physics.holdup_roots import solve_separated
 from ..physics.local_state import LocalState, local_state
@@ -142,8 +143,8 @@ class ClosureLoss(nn.Module):
         # smoothness penalty: (state, row weights, evaluation or None = not evaluated yet)
         reg_states: list[tuple[LocalState, torch.Tensor, NeuralEvaluation | None]] = []
         no_root = 0
-        for kind in KINDS:
-            sel = kinds == KIND_CODE[kind]
+        for kind in SEPARATED_CONFIGURATIONS:
+            sel = kinds == CONFIGURATION_CODE[kind]
             self._measured_state(closure, batch, kinds, sel, kind, need_smooth, acc, reg_states)
             no_root += self._equilibrium(closure, batch, sel, kind, acc, reg_states)
         if cfg.weights["pattern"] > 0:
@@ -216,7 +217,7 @@ class ClosureLoss(nn.Module):
             # the root refined from the level at the measured holdup (all roots where there is none,
             # or where the row's configuration was predicted as another than it was stored with):
             # the closure is evaluated at 9 levels per row instead of the 40 of the bracketing grid
-            same = batch["kind"][data] == KIND_CODE[kind]
+            same = batch["kind"][data] == CONFIGURATION_CODE[kind]
             frac_meas = batch.get("frac_measured")
             if frac_meas is None:
                 meas = measured_state_rows(H[data]) & same

@@ -5,15 +5,15 @@ A batch is a dict of ``(B,)`` tensors built by :func:`closure_nn.training.tables
 the condition fields (:data:`closure_nn.physics.conditions.FIELD_NAMES`), the targets
 ``holdup``, ``pgrad`` (-dp/dx [Pa/m]), their 1-sigma ``holdup_sd``, ``pgrad_sd`` (NaN = not
 measured / not given), the separated configuration ``kind`` (codes of
-:data:`closure_nn.data.features.KIND_CODE`, -1 = not separated flow), the observed ``pattern``
+:class:`closure_nn.data.configurations.RowConfiguration`, -1 = not separated flow), the observed ``pattern``
 (codes of :data:`closure_nn.physics.vocabulary.CODE`, -1 = not observed) and a row ``weight``;
 optionally ``frac_measured``, the level at the measured holdup (:func:`measured_frac`), which the
 training datamodule computes once per row instead of once per batch. Rows of kind
-:data:`~closure_nn.data.features.KIND_PREDICTED` (no observed pattern, ``unknown_pattern='predicted'``)
+``RowConfiguration.PREDICTED`` (no observed pattern, ``unknown_pattern='predicted'``)
 take, at every evaluation of the loss, the configuration of the pattern the closure in training
-predicts for them (:func:`~closure_nn.data.features.resolve_kinds`), so they feed every term
+predicts for them (:func:`~closure_nn.data.configurations.resolve_configurations`), so they feed every term
 that a row observed in that pattern would feed, except the pattern term; rows of kind
-:data:`~closure_nn.data.features.KIND_PREDICTED_CLEAR` (``'predicted_clear'``) likewise, but
+``RowConfiguration.PREDICTED_CLEAR`` (``'predicted_clear'``) likewise, but
 only where that prediction is clear of a transition (else they feed no term).
 
 Uncertainties: ``holdup_sd`` where given, else ``default_holdup_sd``; ``pgrad_sd`` where given,
@@ -23,7 +23,9 @@ from __future__ import annotations
 
 import torch
 
-from ..data.features import KIND_CODE, KIND_PREDICTED, KIND_PREDICTED_CLEAR, KINDS, frac_from_holdup, resolve_kinds
+from ..data.configurations import (CONFIGURATION_CODE, SEPARATED_CONFIGURATIONS, RowConfiguration,
+                                   resolve_configurations)
+from ..data.features import frac_from_holdup
 from ..physics.conditions import FIELD_NAMES, Conditions
 
 
@@ -36,11 +38,11 @@ def batch_conditions(batch: dict[str, torch.Tensor], rows: torch.Tensor | None =
 
 def batch_kinds(batch: dict[str, torch.Tensor], closure, select: str = "thinnest", n_grid: int = 40) -> torch.Tensor:
     """``batch['kind']`` with the rows of kind predicted (or predicted-clear) resolved with ``closure``
-    (:func:`~closure_nn.data.features.resolve_kinds`); the conditions are built only when such rows exist."""
+    (:func:`~closure_nn.data.configurations.resolve_configurations`); the conditions are built only when such rows exist."""
     k = batch["kind"]
-    if not bool(((k == KIND_PREDICTED) | (k == KIND_PREDICTED_CLEAR)).any()):
+    if not bool(((k == RowConfiguration.PREDICTED) | (k == RowConfiguration.PREDICTED_CLEAR)).any()):
         return k
-    return resolve_kinds(k, batch_conditions(batch), closure, select, n_grid)
+    return resolve_configurations(k, batch_conditions(batch), closure, select, n_grid)
 
 
 def measured_state_rows(holdup: torch.Tensor) -> torch.Tensor:
@@ -61,8 +63,8 @@ def measured_frac(batch: dict[str, torch.Tensor]) -> torch.Tensor:
     H = batch["holdup"]
     out = torch.full_like(H, float("nan"))
     rows = measured_state_rows(H)
-    for kind in KINDS:
-        sel = rows & (batch["kind"] == KIND_CODE[kind])
+    for kind in SEPARATED_CONFIGURATIONS:
+        sel = rows & (batch["kind"] == CONFIGURATION_CODE[kind])
         if sel.any():
             out[sel] = frac_from_holdup(H[sel], kind).detach()
     return out

@@ -47,11 +47,13 @@ from ..closures.ensemble import ClosureEnsemble, save_ensemble
 from ..closures.loading import load_saved_closure
 from ..closures.neural import NeuralClosure
 from ..closures.registry import closure_source
+from ..data.configurations import CONFIGURATION_CODE, SEPARATED_CONFIGURATIONS
 from ..data.features import FeatureScaler, TrainingDomain, state_features, table_states
 from ..data.table_io import read_table
 from ..physics.checks import InputError
 from ..run_folder import make_run_dir, write_json
 from .loss import ClosureLoss, LossSettings
+from .loss_batch import batch_conditions, batch_kinds
 from .metrics import accuracy
 from .module import ClosureTask, EpochTimer
 from .processes import map_in_processes
@@ -437,13 +439,10 @@ def _domain_summary(closure: NeuralClosure, cfg: DictConfig) -> dict:
 
 
 def _ensemble_metrics(ens: ClosureEnsemble, val_t: dict, cfg: DictConfig) -> dict:
-    from ..data.features import KIND_CODE, KINDS
-    from .loss_batch import batch_conditions, batch_kinds
-
     spreads_h, spreads_p, errs = [], [], []
     kinds = batch_kinds(val_t, ens, cfg.loss.select)  # rows of kind predicted: the ensemble's pattern
-    for kind in KINDS:
-        sel = kinds == KIND_CODE[kind]
+    for kind in SEPARATED_CONFIGURATIONS:
+        sel = kinds == CONFIGURATION_CODE[kind]
         if not sel.any():
             continue
         pred = ens.predict(batch_conditions(val_t, sel), kind, cfg.loss.select)

@@ -5,7 +5,8 @@ import numpy as np
 import pandas as pd
 import torch
 
-from ..data.features import kind_codes, table_conditions
+from ..data.configurations import configuration_codes
+from ..data.features import table_conditions
 from ..physics.conditions import FIELD_NAMES
 from ..physics.vocabulary import CODE
 
@@ -40,7 +41,7 @@ def table_tensors(df: pd.DataFrame, unknown_pattern: str = "skip", weight: float
     out = {k: getattr(cond, k).clone() for k in FIELD_NAMES}
     for name in ("holdup", "pgrad", "holdup_sd", "pgrad_sd"):
         out[name] = _float_col(df, name)
-    out["kind"] = kind_codes(df["pattern"] if "pattern" in df.columns else None, len(df), unknown_pattern)
+    out["kind"] = configuration_codes(df["pattern"] if "pattern" in df.columns else None, len(df), unknown_pattern)
     out["pattern"] = pattern_codes(df)
     out["weight"] = torch.as_tensor(np.broadcast_to(np.asarray(weight, dtype=np.float64), (len(df),)).copy())
     return out
