@@ -6,7 +6,11 @@
    Churchill + Andritsos-Hanratty labels) with the residual-only loss (phase/combined residuals,
    prior, smoothness; no solver in the loop), batch 4096. Goal <= 2 s.
 2. The same with the solver-in-the-loop misfit (data_holdup, data_pgrad on; the equilibrium and
-   its implicit gradient per batch). Goal <= 10 s.
+   its implicit gradient per batch). Goal <= 2 s (issue 17). ``--compare-solvers R`` times it R
+   times alternately with the equilibrium refined from the measured level (the default,
+   :mod:`closure_nn.physics.near_root`) and with the all-roots solver on the 40-point grid (as
+   before), and counts the rows where the two solvers' roots differ (untrained network, h/D
+   differing by more than 1e-9).
 3. The demo's pre-train + fine-tune (:func:`closure_nn.pipeline.evaluate.train_experiment`,
    conf/experiment/demo.yaml). Goal <= 5 min on 2 cores.
 
@@ -58,11 +62,53 @@ def epoch_time(table: Path, root: Path, solver: bool, threads: int) -> dict:
             "load_1min_after": os.getloadavg()[0] if hasattr(os, "getloadavg") else float("nan")}
 
 
+def compare_solvers(table: Path, root: Path, threads: int, repeats: int) -> None:
+    """Solver-in-the-loop epochs, alternately with the stencil solve and the all-roots solve."""
+    import statistics
+
+    import torch
+
+    from closure_nn.closures.neural import NeuralClosure
+    from closure_nn.data.table_io import read_table
+    from closure_nn.physics.holdup_roots import solve_separated
+    from closure_nn.physics.near_root import solve_separated_near
+    from closure_nn.training import loss as loss_mod
+    from closure_nn.training.loss_batch import batch_conditions, measured_frac
+    from closure_nn.training.tables import table_tensors
+
+    def all_roots(c, closure, guess, kind, n_grid=40):
+        return solve_separated(c, closure, kind, select="thinnest", n_grid=n_grid)
+
+    times = {"stencil": [], "all_roots": []}
+    for _ in range(repeats):
+        for name, fn in (("stencil", solve_separated_near), ("all_roots", all_roots)):
+            loss_mod.solve_separated_near = fn
+            times[name].append(epoch_time(table, root / name, True, threads)["seconds_per_epoch"])
+    loss_mod.solve_separated_near = solve_separated_near
+    for name, v in times.items():
+        print(json.dumps({"what": f"epoch, solver in the loop, {name}", "seconds": v, "median": statistics.median(v),
+                          "threads": threads, "load_1min_after": os.getloadavg()[0]}))
+    t = table_tensors(read_table(table))
+    sel = t["kind"] == 0  # stratified rows
+    t = {k: v[sel] for k, v in t.items()}
+    net = NeuralClosure(hidden=(64, 64), baseline={"wall": "churchill"})
+    with torch.no_grad():
+        c = batch_conditions(t)
+        near = solve_separated_near(c, net, measured_frac(t))
+        full = solve_separated(c, net)
+    diff = (near.frac - full.frac).abs() > 1e-9
+    print(json.dumps({"what": "rows where the stencil root differs from the thinnest root (untrained net)",
+                      "stratified_rows": int(sel.sum()), "differ": int(diff.sum()),
+                      "several_roots": int((full.n_roots > 1).sum())}))
+
+
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--rows", type=int, default=100_000)
     ap.add_argument("--threads", type=int, default=2)
     ap.add_argument("--skip-demo", action="store_true")
+    ap.add_argument("--compare-solvers", type=int, default=0, metavar="R",
+                    help="only the solver-in-the-loop epoch, R times each with the stencil and the all-roots solve")
     a = ap.parse_args(argv)
     warnings.simplefilter("ignore")
     import torch
@@ -85,6 +131,9 @@ def main(argv: list[str] | None = None) -> int:
         table = write_table(s.table, root / "synth.parquet")
         n_sep = int(s.table["pattern"].isin(["stratified_smooth", "stratified_wavy", "annular"]).sum())
         print(json.dumps({"what": "synthetic set", "rows": a.rows, "separated_rows": n_sep, "seconds": time.perf_counter() - t0}))
+        if a.compare_solvers:
+            compare_solvers(table, root / "runs", a.threads, a.compare_solvers)
+            return 0
         for solver in (False, True):
             r = epoch_time(table, root / "runs", solver, a.threads)
             r["rows"] = a.rows
