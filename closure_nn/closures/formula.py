@@ -94,7 +94,7 @@ def wave_threshold_mask(state: LocalState, baseline: BaselineClosure) -> torch.T
         return None
     kw = baseline.interface_kwargs
     vt = float(kw.get("u_t", 5.0)) * torch.sqrt(float(kw.get("rhog_ref", 1.2)) / state.cond.rhog)
-    return torch.broadcast_to(state.cond.vsg > vt, state.geom.frac.shape)
+    return state.cond.vsg > vt  # the conditions' shape; callers broadcast it to the states'
 
 
 @dataclass
@@ -160,6 +160,7 @@ class FormulaClosure(Closure):
         terms = term_matrix(closure_features(state))
         shape = terms.shape[:-1]
         above = wave_threshold_mask(state, self.baseline) if state.kind != ANNULAR else None
+        above = None if above is None else torch.broadcast_to(above, torch.broadcast_shapes(above.shape, shape))
         cols = []
         for k in FACTORS:
             g = torch.zeros(shape, dtype=terms.dtype)
