@@ -26,7 +26,7 @@ from closure_nn.physics.conditions import make_conditions
 from closure_nn.physics.groups import FEATURE_NAMES, closure_features
 from closure_nn.physics.holdup_roots import frac_grid, solve_separated
 from closure_nn.physics.local_state import local_state
-from closure_nn.training.run import REPLAYED, _start_closure
+from closure_nn.training.member_fit import REPLAYED, start_closure
 
 
 def features(vsl, vsg, D, n_frac: int = 8) -> torch.Tensor:
@@ -82,18 +82,18 @@ def _table(vsl, vsg, D, source: str) -> pd.DataFrame:
 
 
 def test_finetune_and_update_record_their_own_rows_not_replayed_ones(tmp_path):
-    """_start_closure: a pre-trained bundle has no measured rows; a fine-tune records exactly the
+    """start_closure: a pre-trained bundle has no measured rows; a fine-tune records exactly the
     domain of its own rows (replayed synthetic rows left out); an update widens it (union)."""
     synth = _table([0.01, 0.05, 0.2, 0.1, 0.02], [1.0, 5.0, 20.0, 10.0, 3.0], [0.05, 0.08, 0.1, 0.3, 0.2], "synthetic")
     lab = _table([0.01, 0.012, 0.011], [1.0, 1.2, 1.1], [0.05, 0.05, 0.05], "lab")
     lab2 = _table([0.05, 0.06], [5.0, 5.5], [0.08, 0.08], "lab")
     cfg = load_config("train", ["data.train=unused.csv"])
-    pre = _start_closure(cfg, synth, 0)
+    pre = start_closure(cfg, synth, 0)
     assert pre.measured_points.shape[0] == 0
     b = save_bundle(pre, tmp_path / "pre")
     ft_cfg = load_config("train", ["stage=finetune", f"init_bundle={b}", "data.train=unused.csv"])
     mixed = pd.concat([lab.assign(**{REPLAYED: False}), synth.assign(**{REPLAYED: True})], ignore_index=True)
-    ft = _start_closure(ft_cfg, mixed, 0)
+    ft = start_closure(ft_cfg, mixed, 0)
     sc = FeatureScaler(mean=pre.feature_mean, std=pre.feature_std)
     want = TrainingDomain.fit(state_features(lab, pre.baseline), sc)
     got = TrainingDomain.from_closure(ft, measured=True)
@@ -103,7 +103,7 @@ def test_finetune_and_update_record_their_own_rows_not_replayed_ones(tmp_path):
     assert not bool(ft.in_measured_domain(x_synth[2:4]).any())  # the 20 m/s, 100 mm and 10 m/s, 300 mm rows
     up_cfg = load_config("train", ["stage=update", f"init_bundle={save_bundle(ft, tmp_path / 'ft')}",
                                    "data.train=unused.csv"])
-    up = _start_closure(up_cfg, lab2, 0)
+    up = start_closure(up_cfg, lab2, 0)
     x_lab2 = state_features(lab2, pre.baseline)
     assert bool(up.in_measured_domain(torch.cat([x_lab, x_lab2])).all())
     assert up.measured_points.shape[0] == x_lab.shape[0] + x_lab2.shape[0]

@@ -23,7 +23,8 @@ from omegaconf import DictConfig, OmegaConf
 from ..closures.baseline import BaselineClosure
 from ..data.design_space import DesignSpace
 from ..data.synthetic import SyntheticSet, synthesize
-from ..training.run import StageResult, baseline_kwargs, run_stage
+from ..training.member_fit import baseline_kwargs
+from ..training.run import StageResult, run_stage
 from ..training.tables import split_table
 
 Say = Callable[[str], None]
