@@ -38,6 +38,7 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "line": ("closure_nn.commands.line", "march along a line profile: pressure, holdup, pattern, inventory"),
     "demo": ("closure_nn.commands.demo", "the end-to-end demo on the shipped invented data"),
     "export": ("closure_nn.commands.export", "write a closure bundle as an ONNX graph or plain JSON for other solvers"),
+    "distill": ("closure_nn.commands.distill", "a learned closure as a compact formula per friction factor, with its fidelity"),
 }
 
 

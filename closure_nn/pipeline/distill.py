@@ -46,7 +46,7 @@ class DistillSettings:
     level_factors: tuple[float, ...] = (0.6, 0.8, 1.0, 1.25, 1.6)  #: levels read, as factors on the equilibrium h/D (delta/D)
     max_terms: int = 4  #: terms per formula besides the constant
     penalty: float | None = None  #: price of one coefficient in the criterion (None: ln n, BIC)
-    sd_floor: float = 0.005  #: [-, ln units] residual sd below which fits count as equal
+    sd_floor: float = 0.02  #: [-, ln units] residual sd below which fits count as equal (2 % on f)
     min_states: int = 30  #: fewer states in a region: the baseline is kept there
     in_domain_only: bool = True  #: keep only states inside the closure's training domain
 
