@@ -94,6 +94,7 @@ TRAINER = {
     "lr_final_factor": NONNEG,
     "gradient_clip_val": Number(0, nullable=True),
     "monitor": Choice(_MONITORS),
+    "monitor_rows": Number(1, whole=True, nullable=True),
     "patience": Number(0, whole=True, nullable=True),
     "min_delta": NONNEG,
     "deterministic": FLAG,

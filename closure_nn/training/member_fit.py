@@ -144,9 +144,12 @@ def fit_member(cfg: DictConfig, train_df: pd.DataFrame, val_t: dict, replay_t: d
     loss = LossSettings(**OmegaConf.to_container(cfg.loss, resolve=True))
     counts = fed_rows(closure, train_t, loss)
     check_fed(counts, train_t, loss, str(cfg.data.get("train") or "training table"), cfg.data.unknown_pattern)
+    # monitoring of the training and replay tables on a seeded sample (trainer.monitor_rows); the
+    # validation rows, which stop the fit and decide what ships, are always used whole
+    sample = (cfg.trainer.get("monitor_rows"), seed)
     metrics: dict = {"seed": seed, "rows_per_term": counts, "val_initial": accuracy(closure, val_t, cfg.loss.select)}
     if replay_t is not None:
-        metrics["replay_before"] = accuracy(closure, replay_t, cfg.loss.select)
+        metrics["replay_before"] = accuracy(closure, replay_t, cfg.loss.select, *sample)
     t = cfg.trainer
     lr = float(t.lr) * (1.0 if cfg.stage == "pretrain" else float(cfg.finetune.lr_factor))
     task = ClosureTask(closure, loss, lr=lr, weight_decay=t.weight_decay, select=cfg.loss.select,
@@ -184,10 +187,10 @@ def fit_member(cfg: DictConfig, train_df: pd.DataFrame, val_t: dict, replay_t: d
         f"best_{t.monitor.replace('/', '_')}": float(score) if score is not None else math.nan,
         # training part of an epoch (timer callback); under spawned DDP the whole fit / epochs
         "seconds_per_epoch": sum(timer.seconds) / len(timer.seconds) if timer.seconds else fit_seconds / max(epochs, 1),
-        "train": accuracy(closure, train_t, cfg.loss.select), "val": accuracy(closure, val_t, cfg.loss.select),
+        "train": accuracy(closure, train_t, cfg.loss.select, *sample), "val": accuracy(closure, val_t, cfg.loss.select),
     })
     if replay_t is not None:
-        metrics["replay_after"] = accuracy(closure, replay_t, cfg.loss.select)
+        metrics["replay_after"] = accuracy(closure, replay_t, cfg.loss.select, *sample)
         metrics["forgetting"] = {k: metrics["replay_after"][k] - metrics["replay_before"][k]
                                  for k in ("holdup_rmse", "pgrad_rel_rmse")}
     return closure, metrics
