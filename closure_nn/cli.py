@@ -39,6 +39,7 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "demo": ("closure_nn.commands.demo", "the end-to-end demo on the shipped invented data"),
     "export": ("closure_nn.commands.export", "write a closure bundle as an ONNX graph or plain JSON for other solvers"),
     "distill": ("closure_nn.commands.distill", "a learned closure as a compact formula per friction factor, with its fidelity"),
+    "plan": ("closure_nn.commands.plan", "rank candidate flow-loop test points by what the ensemble does not know; choose a diverse batch"),
 }
 
 
