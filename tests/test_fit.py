@@ -196,7 +196,7 @@ def test_settings_search_is_seeded_and_chooses_inside_the_declared_space(invente
     from closure_nn.pipeline.search import search_settings
     from closure_nn.pipeline.stages import pretrain, synthesize_design
     from closure_nn.pipeline.envelope import envelope_design
-    from closure_nn.pipeline.fit import validate_lab
+    from closure_nn.pipeline.lab_table import validate_lab
 
     cfg = load_config("fit", ["fit.synth.n=200", "stage_trainer.pretrain.max_epochs=1", "fit.search.trials=2",
                               "fit.search.processes=1"])

@@ -16,7 +16,7 @@ from closure_nn.data.closure_table import noisy_table
 from closure_nn.data.demo_reference import ReferenceClosure
 from closure_nn.data.design_space import parse_design
 from closure_nn.pipeline.envelope import envelope_design
-from closure_nn.pipeline.fit import validate_lab
+from closure_nn.pipeline.lab_table import validate_lab
 from closure_nn.pipeline.stages import finetune, pretrain, synthesize_design
 from closure_nn.training.run import train
 

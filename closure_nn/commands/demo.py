@@ -35,7 +35,7 @@ from ..line.march import MarchSettings
 from ..line.run import run_line, write_line_run
 from ..pipeline.audit_stage import audit_table
 from ..pipeline.evaluate import make_synthetic, repo_path, run_evaluation
-from ..pipeline.fit import validate_lab
+from ..pipeline.lab_table import validate_lab
 from ..pipeline.stages import finetune, pretrain
 from ..report.training_plots import evaluation_figures
 from ..run_folder import make_run_dir, write_json

@@ -6,6 +6,7 @@ Public API: :func:`fit` (``closure-nn fit``: lab table -> validated closure bund
 from __future__ import annotations
 
 from .envelope import Margins, envelope_design, line_conditions
-from .fit import FitResult, LabTable, fit, validate_lab
+from .fit import FitResult, fit
+from .lab_table import LabTable, validate_lab
 
 __all__ = ["FitResult", "LabTable", "Margins", "envelope_design", "fit", "line_conditions", "validate_lab"]

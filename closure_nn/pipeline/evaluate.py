@@ -57,18 +57,14 @@ from ..config import CONF_DIR, load_config
 from ..data.design_space import parse_design
 from ..data.result_tables import write_result_csv
 from ..data.splits import group_labels, grouped_split, kfold_split, random_split
-from ..data.table_io import read_table
 from ..physics.checks import InputError
 from ..run_folder import write_json
-from ..training.blackbox import BlackBoxRegressor, BlackBoxSettings
-from ..training.loss import LossSettings
-from ..training.loss_batch import uncertainties
-from ..training.metrics import measured_state_residuals
 from ..training.processes import map_in_processes
-from ..training.run import StageResult, with_stage_trainer
-from ..training.scoring import predict_table, score_table
-from ..training.tables import table_tensors
-from .stages import baseline_of, finetune, pretrain, stage_config, synthesize_design
+from ..training.run import StageResult
+from ..training.scoring import predict_table
+from .comparison import black_boxes, residuals, score
+from .lab_table import validate_lab
+from .stages import baseline_of, finetune, pretrain, synthesize_design
 
 REPO = CONF_DIR.parent
 SUBSETS = ("clean", "all")
@@ -82,18 +78,14 @@ def repo_path(p: str | Path) -> Path:
 
 
 def load_lab(path: str | Path) -> pd.DataFrame:
-    """Read and validate a lab table (SI columns, rhog computed where needed); rejected rows are
-    dropped with a warning (run ``closure-nn check-data`` to see them)."""
-    from ..data.validate import validate
-
-    p = repo_path(path)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        clean, rejected = validate(read_table(p), path=p)
-    if len(rejected):
-        warnings.warn(f"{p}: {len(rejected)} row(s) rejected by validation and left out", stacklevel=2)
-    clean.attrs["path"] = str(p)
-    return clean.reset_index(drop=True)
+    """Read and validate a lab table (:func:`closure_nn.pipeline.lab_table.validate_lab`: SI columns, rhog
+    computed where needed); rejected rows are dropped with a warning (``closure-nn check-data``
+    lists them)."""
+    lab = validate_lab(repo_path(path))
+    if len(lab.validation.rejected):
+        warnings.warn(f"{lab.path}: {len(lab.validation.rejected)} row(s) rejected by validation and left out",
+                      stacklevel=2)
+    return lab.rows
 
 
 def corrupted_mask(df: pd.DataFrame, path: str | Path | None) -> np.ndarray:
@@ -152,71 +144,6 @@ def train_experiment(cfg: DictConfig, lab_df: pd.DataFrame, run_dir: str | Path,
             "seconds": {"synthetic": t1 - t0, "pretrain": t2 - t1, "finetune": t3 - t2, "total": t3 - t0}}
 
 
-# --------------------------------------------------------------------------- prediction and scoring
-def score(preds: dict[str, dict], df: pd.DataFrame, rows: np.ndarray, sc: DictConfig) -> dict[str, dict]:
-    """Scores of every model on the same ``rows`` (bool ``(N,)``): a measurement counts only where
-    every model has a finite prediction; each model's own misses are reported as ``n_*_missing``."""
-    H, P = df["holdup"].to_numpy(np.float64), df["pgrad"].to_numpy(np.float64)
-    all_h = np.logical_and.reduce([np.isfinite(p["holdup"]) for p in preds.values()])
-    all_p = np.logical_and.reduce([np.isfinite(p["pgrad"]) for p in preds.values()])
-    common = df.assign(holdup=np.where(all_h, H, np.nan), pgrad=np.where(all_p, P, np.nan))
-    out = {}
-    for name, p in preds.items():
-        own = score_table(p, df, rows, sc.holdup_floor, sc.pgrad_floor)
-        s = score_table(p, common, rows, sc.holdup_floor, sc.pgrad_floor)
-        s["n_holdup_missing"], s["n_pgrad_missing"] = own["n_holdup_missing"], own["n_pgrad_missing"]
-        out[name] = s
-    return out
-
-
-def _residual_summary(r: np.ndarray) -> dict[str, float]:
-    a = np.abs(r[np.isfinite(r)])
-    if not a.size:
-        return {"n": 0, "median_abs": math.nan, "p90_abs": math.nan, "share_within_2": math.nan}
-    return {"n": int(a.size), "median_abs": float(np.median(a)), "p90_abs": float(np.quantile(a, 0.9)),
-            "share_within_2": float((a <= 2).mean())}
-
-
-def residuals(closures: dict, df: pd.DataFrame, rows: np.ndarray, tcfg: DictConfig) -> dict[str, dict]:
-    """Measured-state phase residuals of each closure on ``rows``: arrays and summary. Units: pgrad
-    sd, or the effective sd with the propagated holdup sd when the loss uses ``effective_variance``."""
-    t = table_tensors(df[rows].reset_index(drop=True), tcfg.data.unknown_pattern)
-    ls = LossSettings(**OmegaConf.to_container(tcfg.loss, resolve=True))
-    sh, sp = uncertainties(t, ls)
-    out = {}
-    for name, c in closures.items():
-        r = measured_state_residuals(c, t, sp, sh if ls.effective_variance else None)
-        out[name] = {"r_liquid": r["r_liquid"], "r_gas": r["r_gas"],
-                     "summary": {"liquid": _residual_summary(r["r_liquid"]), "gas": _residual_summary(r["r_gas"])}}
-    return out
-
-
-def _blackbox_settings(cfg: DictConfig, seed: int) -> BlackBoxSettings:
-    """Same budget as the closure's fine-tune: epochs, batch size, patience, validation share;
-    the learning rate of a training from scratch (``trainer.lr``)."""
-    b, t = cfg.blackbox, with_stage_trainer(stage_config(cfg, "finetune")).trainer
-    return BlackBoxSettings(hidden=tuple(b.hidden), activation=b.activation, max_epochs=int(t.max_epochs),
-                            batch_size=int(t.batch_size), lr=float(t.lr), weight_decay=float(t.weight_decay),
-                            patience=int(t.patience), val_fraction=float(cfg.data.val_fraction),
-                            holdup_scale=float(b.holdup_scale), pgrad_scale=float(b.pgrad_scale), seed=seed)
-
-
-def _black_boxes(cfg: DictConfig, rows: pd.DataFrame) -> tuple[dict, dict]:
-    """The black-box regressors trained on ``rows`` (the MLP on raw inputs and, with
-    ``boosted.enabled``, gradient-boosted trees on dimensionless groups), and their timings."""
-    out, info = {}, {}
-    t0 = time.perf_counter()
-    out["blackbox"] = BlackBoxRegressor(_blackbox_settings(cfg, int(_exp(cfg).seed))).fit(rows)
-    info["blackbox"] = {"epochs": len(out["blackbox"].history), "seconds": time.perf_counter() - t0}
-    if cfg.boosted.enabled:
-        from ..training.boosted import BoostedGroupsRegressor, BoostedSettings
-
-        t0 = time.perf_counter()
-        out["boosted"] = BoostedGroupsRegressor(BoostedSettings(seed=int(_exp(cfg).seed))).fit(rows)
-        info["boosted"] = {"chosen": getattr(out["boosted"], "chosen", None), "seconds": time.perf_counter() - t0}
-    return out, info
-
-
 def evaluate_split(cfg: DictConfig, name: str, lab: pd.DataFrame, train_idx: np.ndarray, test_idx: np.ndarray,
                    corrupt: np.ndarray, init, run_dir: Path, trainer: dict | None = None, keep: bool = True) -> dict:
     """Fine-tune ``init`` (the pre-trained closure) and the black boxes on ``train_idx``, score every
@@ -230,7 +157,7 @@ def evaluate_split(cfg: DictConfig, name: str, lab: pd.DataFrame, train_idx: np.
     values = {f"trainer.{k}": v for k, v in (trainer or {}).items()}
     ft = finetune(cfg, init, tr, run_dir / "train" / f"finetune-{name}", **values)
     t_ft = time.perf_counter() - t0
-    boxes, box_info = _black_boxes(cfg, tr)
+    boxes, box_info = black_boxes(cfg, tr)
     models = {"baseline": baseline_of(cfg), "learned": ft.closure, **boxes}
     if cfg.scoring.oracle:
         from ..data.demo_reference import ReferenceClosure

@@ -39,28 +39,18 @@ from omegaconf import DictConfig, OmegaConf
 from ..caution import CAUTION
 from ..data.design_space import DesignSpace, parse_design
 from ..data.result_tables import write_result_csv
-from ..data.table_io import read_table
-from ..data.validate import ValidationResult, validate_table
 from ..physics.checks import InputError
 from ..run_folder import make_run_dir, write_json
 from ..training.module import EpochProgress
 from ..training.run import StageResult
 from ..training.scoring import predict_table, score_table
+from .lab_table import LabTable, validate_lab
 from .envelope import Margins, describe_envelope, envelope_design, line_conditions
 from .stages import baseline_of, development_split, finetune, pretrain, solver_of, synthesize_design
 
 #: measures of the report, in the README's words
 MEASURES = (("holdup_mae", "holdup MAE [-]"), ("holdup_mape", "holdup MAPE [%]"), ("pgrad_mape", "pgrad MAPE [%]"),
             ("pgrad_within_20", "pgrad within +-20 %"), ("pattern_accuracy", "pattern accuracy"))
-
-
-@dataclass
-class LabTable:
-    """A validated lab table: accepted ``rows`` (SI), the ``validation`` result (rejected rows, warnings)."""
-
-    rows: pd.DataFrame
-    validation: ValidationResult
-    path: str
 
 
 @dataclass
@@ -72,19 +62,6 @@ class FitResult:
     closure: object
     report: dict
     stages: dict[str, StageResult] = field(default_factory=dict)
-
-
-def validate_lab(table: str | Path | pd.DataFrame) -> LabTable:
-    """Read (if a path) and validate a lab table; raise :class:`InputError` if no row is left."""
-    path = "in-memory table" if isinstance(table, pd.DataFrame) else str(table)
-    raw = table if isinstance(table, pd.DataFrame) else read_table(table)
-    res = validate_table(raw, path=None if isinstance(table, pd.DataFrame) else table)
-    if not len(res.clean):
-        raise InputError(f"fit: {path}: no row passed validation ({len(res.rejected)} rejected); "
-                         f"run `closure-nn check-data {path}` for the reasons")
-    rows = res.clean.reset_index(drop=True)
-    rows.attrs["path"] = path
-    return LabTable(rows=rows, validation=res, path=path)
 
 
 def design_space(cfg: DictConfig, lab: LabTable, line=None, design: str | Path | None = None,
@@ -147,13 +124,7 @@ def fit(cfg: DictConfig, table: str | Path | pd.DataFrame, *, line=None, design:
     seconds["validate"] = time.perf_counter() - t0
     t0 = time.perf_counter()
     space = design_space(cfg, lab, line, design, say)
-    run = Path(run_dir) if run_dir is not None else make_run_dir("fit", root=cfg.run_root, name=cfg.run_name)
-    run.mkdir(parents=True, exist_ok=True)
-    (run / "CAUTION.txt").write_text(CAUTION + "\n")
-    OmegaConf.save(cfg, run / "settings.yaml", resolve=True)
-    if len(v.rejected):
-        v.write(run)
-        say(f"      the {len(v.rejected)} rejected row(s) with their reasons: {run / 'rejected.csv'}")
+    run = _open_run(cfg, lab, run_dir, say)
     say(f"[2/5] design space {space.name!r}: " + "; ".join(describe_envelope(space)))
     synth = synthesize_design(cfg, space, int(cfg.fit.synth.n), int(cfg.fit.synth.seed))
     say(f"      {len(synth.table)} synthetic points of the baseline in {synth.report['seconds']:.0f} s")
@@ -171,7 +142,7 @@ def fit(cfg: DictConfig, table: str | Path | pd.DataFrame, *, line=None, design:
     ft_cfg = cfg
     search_report = None
     if int(cfg.fit.search.trials) > 0:
-        from .search import search_settings
+        from .search import search_settings  # lazy: Optuna is imported only when a search is asked for
 
         say(f"[4/5] settings search: {int(cfg.fit.search.trials)} trials on the development rows")
         ft_cfg, search_report = search_settings(cfg, pre, lab.rows, run / "search", say=_indent(say))
@@ -191,16 +162,35 @@ def fit(cfg: DictConfig, table: str | Path | pd.DataFrame, *, line=None, design:
     seconds["score"] = time.perf_counter() - t0
     seconds["total"] = time.perf_counter() - t_all
     report["seconds"] = seconds
+    _write_report(report, preds, dev_rows, run, figures)
+    for line_ in report["text"].splitlines():
+        say(line_)
+    return FitResult(run_dir=run, bundle=bundle, closure=ft.closure, report=report,
+                     stages={"pretrain": pre, "finetune": ft})
+
+
+def _open_run(cfg: DictConfig, lab: LabTable, run_dir: str | Path | None, say: Callable[[str], None]) -> Path:
+    """The run folder with the caution, the resolved settings and the rejected rows."""
+    run = Path(run_dir) if run_dir is not None else make_run_dir("fit", root=cfg.run_root, name=cfg.run_name)
+    run.mkdir(parents=True, exist_ok=True)
+    (run / "CAUTION.txt").write_text(CAUTION + "\n")
+    OmegaConf.save(cfg, run / "settings.yaml", resolve=True)
+    v = lab.validation
+    if len(v.rejected):
+        v.write(run)
+        say(f"      the {len(v.rejected)} rejected row(s) with their reasons: {run / 'rejected.csv'}")
+    return run
+
+
+def _write_report(report: dict, preds: dict, dev_rows: pd.DataFrame, run: Path,
+                  figures: Callable[[dict, Path], list[str]] | None) -> None:
+    """report.json / report.md, the figures and development_predictions.csv."""
     kept = {k: preds[k] for k in ("baseline", "pretrained", "shipped")}
     if figures is not None:
         report["figures"] = figures({"predictions": kept, "rows": dev_rows, "scores": report["scores"]}, run)
     write_json(run / "report.json", {k: v for k, v in report.items() if k != "text"})
     (run / "report.md").write_text(report["text"] + "\n")
     write_result_csv(_prediction_table(kept, dev_rows), run / "development_predictions.csv")
-    for line_ in report["text"].splitlines():
-        say(line_)
-    return FitResult(run_dir=run, bundle=bundle, closure=ft.closure, report=report,
-                     stages={"pretrain": pre, "finetune": ft})
 
 
 def _development_report(cfg: DictConfig, lab: LabTable, fit_rows: pd.DataFrame, dev_rows: pd.DataFrame,
