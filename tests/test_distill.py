@@ -31,6 +31,7 @@ from closure_nn.physics.geometry import ANNULAR
 from closure_nn.physics.groups import closure_features
 from closure_nn.physics.local_state import local_state
 from closure_nn.physics.momentum import FrictionFactors
+from closure_nn.physics.vocabulary import CODE
 from closure_nn.pipeline.distill import distill, fidelity
 
 #: exponents and leading constants of the INVENTED truth (ratio to the baseline)
@@ -162,7 +163,7 @@ def _feature_targets(truth: Closure, rows: pd.DataFrame) -> dict:
     out = {}
     lf = torch.tensor([0.6, 0.8, 1.0, 1.25, 1.6], dtype=torch.float64)
     for kind, level, ok, hi in (("stratified", r.roots[:, 0], torch.isfinite(r.roots[:, 0]), 0.98),
-                                (ANNULAR, r.frac, (r.pattern == 3) & torch.isfinite(r.frac), 0.45)):
+                                (ANNULAR, r.frac, (r.pattern == CODE['annular']) & torch.isfinite(r.frac), 0.45)):
         idx = torch.nonzero(ok).flatten()
         c = cond[idx].map(lambda t: t.unsqueeze(-1))
         with torch.no_grad():

@@ -32,6 +32,7 @@ from ..physics.geometry import ANNULAR, STRATIFIED
 from ..physics.groups import closure_features
 from ..physics.local_state import local_state
 from ..physics.point import solve_points
+from ..physics.vocabulary import ANNULAR as V_ANNULAR, CODE
 from ..training.scoring import predict_table, score_table
 from .sparse_fit import sparse_fit
 
@@ -53,8 +54,8 @@ class DistillSettings:
 
 @dataclass
 class StateSample:
-    """States of one configuration: ``terms (n, T)``, targets ``y (n, 3)``, ``wavy (n,)`` (above the
-    wave threshold; all False without one), ``n_conditions`` solved."""
+    """States of one configuration (``kind``): library terms ``terms (n, T)``, targets ``y (n, 3)``
+    (ln f / f_base of f_WL, f_WG, f_i), ``wavy (n,)`` (above the wave threshold; all False without one)."""
 
     kind: str
     terms: np.ndarray
@@ -91,7 +92,7 @@ def sample_states(closure, rows: pd.DataFrame, settings: DistillSettings, solver
     cond = to_conditions(rows, check=True)
     with torch.no_grad():
         r = solve_points(cond, closure, **(solver or {}))
-    ann = (r.pattern == 3) & r.separated & torch.isfinite(r.frac)  # 3 = annular in vocabulary.PATTERNS
+    ann = (r.pattern == CODE[V_ANNULAR]) & r.separated & torch.isfinite(r.frac)
     strat_level = torch.where(torch.isfinite(r.roots[:, 0]), r.roots[:, 0], r.frac)
     out = []
     lf = torch.tensor(settings.level_factors, dtype=torch.float64)

@@ -45,6 +45,8 @@ from ..physics.vocabulary import PATTERNS
 ENVELOPE_KEYS = ("name", "description", "vsl", "vsg", "D_mm", "theta_deg", "p_bara", "T_degC", "roughness_um",
                  "gas", "liquids")
 GAS_KEYS = ("M_g", "mug")
+#: weights of the three reasons (conf/plan.yaml ``weights``)
+DEFAULT_WEIGHTS = {"disagreement": 1.0, "distance": 0.5, "boundary": 0.5}
 LIQUID_KEYS = ("rhol", "mul", "sigma")
 
 
@@ -149,7 +151,7 @@ def _percentile(x: np.ndarray) -> np.ndarray:
     return (r - 1) / max(len(x) - 1, 1)
 
 
-def _coarse(codes: torch.Tensor) -> np.ndarray:
+def _pattern_names(codes: torch.Tensor) -> np.ndarray:
     return np.array([PATTERNS[int(c)] for c in codes], dtype=object)
 
 
@@ -173,16 +175,16 @@ def score_candidates(ensemble: ClosureEnsemble, table: pd.DataFrame, s: PlanSett
     dist = _measured_distance(m0, feats)
     distance = np.minimum(dist, s.distance_cap) / s.distance_cap
     # closeness to a pattern boundary: neighbours in v_SL, v_SG and the members' own patterns
-    pat = _coarse(mean.pattern)
+    pat = _pattern_names(mean.pattern)
     differ = []
     for col, f in (("vsl", s.boundary_step), ("vsl", 1 / s.boundary_step), ("vsg", s.boundary_step), ("vsg", 1 / s.boundary_step)):
         nb = table.copy()
         nb[col] = nb[col] * f
         with torch.no_grad():
-            differ.append(_coarse(solve_points(to_conditions(nb), ensemble, **solver).pattern) != pat)
-    differ += [_coarse(r.pattern) != pat for r in per]
+            differ.append(_pattern_names(solve_points(to_conditions(nb), ensemble, **solver).pattern) != pat)
+    differ += [_pattern_names(r.pattern) != pat for r in per]
     boundary = np.mean(differ, axis=0)
-    w = {"disagreement": 1.0, "distance": 0.5, "boundary": 0.5, **dict(s.weights or {})}
+    w = {**DEFAULT_WEIGHTS, **dict(s.weights or {})}
     score = w["disagreement"] * disagreement + w["distance"] * distance + w["boundary"] * boundary
     return pd.DataFrame({"pattern": pat, "holdup_mean": np.nanmean(H, 0), "holdup_sd": sd_h,
                          "pgrad_mean": np.nanmean(P, 0), "pgrad_sd_rel": sd_lp, "disagreement": disagreement,
@@ -236,5 +238,5 @@ def plan(ensemble: ClosureEnsemble, space: DesignSpace, settings: PlanSettings |
     chosen.insert(0, "rank", np.arange(1, len(chosen) + 1))
     summary = {"candidates": len(cand), "chosen": len(chosen), "separation_used": sep,
                "separation_asked": s.min_separation, "seed": s.seed,
-               "weights": {"disagreement": 1.0, "distance": 0.5, "boundary": 0.5, **dict(s.weights or {})}}
+               "weights": {**DEFAULT_WEIGHTS, **dict(s.weights or {})}}
     return chosen, cand, summary
