@@ -37,18 +37,8 @@ from ..physics.geometry import STRATIFIED, h_from_holdup
 from ..physics.groups import FEATURE_NAMES, closure_features
 from ..physics.holdup_roots import solve_separated
 from ..physics.local_state import LocalState, local_state
-from .configurations import (CONFIGURATION_CODE, SEPARATED_CONFIGURATIONS, RowConfiguration,
-                             configuration_codes, resolve_configurations)
+from .configurations import CONFIGURATION_CODE, SEPARATED_CONFIGURATIONS, configuration_codes, resolve_configurations
 from .schema import to_conditions
-
-# Names of the separated configuration of a row: closure_nn.data.configurations. The spellings
-# below are kept while training/metrics.py and training/loss_batch.py move to the new names.
-KIND_CODE = CONFIGURATION_CODE
-KINDS = SEPARATED_CONFIGURATIONS
-KIND_PREDICTED = RowConfiguration.PREDICTED
-KIND_PREDICTED_CLEAR = RowConfiguration.PREDICTED_CLEAR
-kind_codes = configuration_codes
-resolve_kinds = resolve_configurations
 
 
 def table_conditions(df: pd.DataFrame) -> Conditions:

@@ -3,7 +3,7 @@
 For every separated-flow row with a measured target the closure's equilibrium is solved
 (:func:`~closure_nn.physics.holdup_roots.solve_separated`, kind from the observed pattern, or, for
 rows of unknown pattern under ``unknown_pattern='predicted'``, from the pattern the closure
-predicts: :func:`~closure_nn.data.features.resolve_kinds`) and compared:
+predicts: :func:`~closure_nn.data.configurations.resolve_configurations`) and compared:
 
 * ``holdup_rmse``, ``holdup_mae`` [-]: absolute holdup errors,
 * ``pgrad_rel_rmse`` [-]: RMS of (predicted / measured - 1) over rows with |pgrad| >= 1 Pa/m,
@@ -21,7 +21,8 @@ import math
 import numpy as np
 import torch
 
-from ..data.features import KIND_CODE, KINDS
+from ..data.configurations import CONFIGURATION_CODE, SEPARATED_CONFIGURATIONS
+from ..data.features import frac_from_holdup
 from ..physics.holdup_roots import solve_separated
 from .loss_batch import batch_conditions, batch_kinds
 
@@ -37,8 +38,8 @@ def predict_rows(closure, t: dict[str, torch.Tensor], select: str = "thinnest") 
     found = torch.zeros(n, dtype=torch.bool)
     with torch.no_grad():
         kinds = batch_kinds(t, closure, select)
-        for kind in KINDS:
-            sel = kinds == KIND_CODE[kind]
+        for kind in SEPARATED_CONFIGURATIONS:
+            sel = kinds == CONFIGURATION_CODE[kind]
             if sel.any():
                 sol = solve_separated(batch_conditions(t, sel), closure, kind, select=select)
                 hold[sel] = torch.where(sol.found, sol.holdup, torch.nan)
@@ -159,7 +160,6 @@ def measured_state_residuals(closure, t: dict[str, torch.Tensor], pgrad_sd: torc
     """
     from .loss_terms import holdup_sensitivity
 
-    from ..data.features import frac_from_holdup
     from ..physics.local_state import local_state
     from ..physics.momentum import gas_residual, liquid_residual, shear_stresses
 
@@ -169,8 +169,8 @@ def measured_state_residuals(closure, t: dict[str, torch.Tensor], pgrad_sd: torc
     H, P = t["holdup"], t["pgrad"]
     with torch.no_grad():
         kinds = batch_kinds(t, closure)
-        for kind in KINDS:
-            sel = (kinds == KIND_CODE[kind]) & torch.isfinite(H) & torch.isfinite(P) & (H > 0) & (H < 1)
+        for kind in SEPARATED_CONFIGURATIONS:
+            sel = (kinds == CONFIGURATION_CODE[kind]) & torch.isfinite(H) & torch.isfinite(P) & (H > 0) & (H < 1)
             if not sel.any():
                 continue
             s = local_state(batch_conditions(t, sel), frac_from_holdup(H[sel], kind), kind)
