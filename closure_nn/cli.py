@@ -103,8 +103,22 @@ def main(argv: list[str] | None = None) -> int:
         args, overrides = _split(argv, _value_options(cmd_parser))
         ns = cmd_parser.parse_args(args[1:])
         return int(module.run(ns, overrides) or 0)
+    except BrokenPipeError:  # the reader of a pipe stopped early (`closure-nn ... | head`): not a fault
+        return _reader_gone()
     except BaseException as exc:  # the error boundary: one line, a code, the traceback in a log
         return _report(exc, name, debug, CREATED_RUN_DIRS[n_runs:])
+
+
+def _reader_gone() -> int:
+    """Point stdout at the null device so that the interpreter's last flush cannot fail again
+    (the handling the Python documentation recommends for SIGPIPE, signal module, "Note on
+    SIGPIPE"); exit quietly with 0, as the output asked for was taken."""
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+    except (OSError, ValueError, AttributeError):  # stdout without a file descriptor (e.g. in tests)
+        pass
+    return 0
 
 
 def _epilog(name: str, args: list[str]) -> str:
