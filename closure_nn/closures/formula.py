@@ -58,7 +58,9 @@ _IX = {n: i for i, n in enumerate(FEATURE_NAMES)}
 
 #: term name -> (feature it is computed from, transform, symbol in text, symbol in LaTeX)
 #: transform 'ln10': the feature is a log10, the term its natural log; 'ln': natural log of the
-#: (positive) feature; 'lin': the feature itself (sin theta: an exponential factor).
+#: (positive) feature; 'lin': the feature itself (sin theta: an exponential factor); 'base': the
+#: baseline's own interfacial enhancement ln(f_i,base / f_WG,base) (Andritsos & Hanratty 1987:
+#: 0 below their wave threshold; the same input the neural closure's f_i branch reads).
 TERMS: dict[str, tuple[str, str, str, str]] = {
     "ln_Re_L": ("log10_Re_L", "ln10", "Re_L", r"\mathrm{Re}_L"),
     "ln_Re_G": ("log10_Re_G", "ln10", "Re_G", r"\mathrm{Re}_G"),
@@ -68,18 +70,23 @@ TERMS: dict[str, tuple[str, str, str, str]] = {
     "ln_rho_ratio": ("log10_rho_ratio", "ln10", "(rho_G/rho_L)", r"(\rho_G/\rho_L)"),
     "ln_mu_ratio": ("log10_mu_ratio", "ln10", "(mu_G/mu_L)", r"(\mu_G/\mu_L)"),
     "sin_theta": ("sin_theta", "lin", "sin(theta)", r"\sin\theta"),
+    "ln_base_wave": ("", "base", "(f_i,base/f_WG,base)", r"(f_{i,\mathrm{base}}/f_{WG,\mathrm{base}})"),
 }
 TERM_NAMES = tuple(TERMS)
 REGIONS = ("stratified", "stratified_wave_free", "stratified_wavy", "annular")
 _FLOOR = 1e-30
 
 
-def term_matrix(features: torch.Tensor) -> torch.Tensor:
-    """Library terms ``(*batch, len(TERM_NAMES))`` from closure features ``(*batch, F)``
-    (:data:`TERMS`; logs floored at 1e-30 so a zero group stays finite)."""
+def term_matrix(features: torch.Tensor, base_wave: torch.Tensor) -> torch.Tensor:
+    """Library terms ``(*batch, len(TERM_NAMES))`` from closure features ``(*batch, F)`` and the
+    baseline's ln(f_i,base / f_WG,base) ``(*batch)`` (:data:`TERMS`; logs floored at 1e-30 so a
+    zero group stays finite)."""
     cols = []
     for name in TERM_NAMES:
         feat, how, _, _ = TERMS[name]
+        if how == "base":
+            cols.append(torch.broadcast_to(base_wave, features.shape[:-1]))
+            continue
         x = features[..., _IX[feat]]
         cols.append(x * LN10 if how == "ln10" else torch.log(x.clamp_min(_FLOOR)) if how == "ln" else x)
     return torch.stack(cols, dim=-1)
@@ -155,9 +162,11 @@ class FormulaClosure(Closure):
             self.pieces[k] = ps
         self.label = "formula(" + ", ".join(f"{k}: {len(v)} piece(s)" for k, v in self.pieces.items()) + ")"
 
-    def log_ratio(self, state: LocalState) -> torch.Tensor:
-        """ln(f_k / f_k,base) after the clip, ``(*batch, 3)`` in the order f_WL, f_WG, f_i."""
-        terms = term_matrix(closure_features(state))
+    def log_ratio(self, state: LocalState, base: FrictionFactors | None = None) -> torch.Tensor:
+        """ln(f_k / f_k,base) after the clip, ``(*batch, 3)`` in the order f_WL, f_WG, f_i
+        (``base``: the baseline's factors at ``state``, if already evaluated)."""
+        base = self.baseline(state) if base is None else base
+        terms = term_matrix(closure_features(state), torch.log(base.f_i / base.f_wg))
         shape = terms.shape[:-1]
         above = wave_threshold_mask(state, self.baseline) if state.kind != ANNULAR else None
         above = None if above is None else torch.broadcast_to(above, torch.broadcast_shapes(above.shape, shape))
@@ -175,7 +184,7 @@ class FormulaClosure(Closure):
 
     def forward(self, state: LocalState) -> FrictionFactors:
         base = self.baseline(state)
-        g = self.log_ratio(state)
+        g = self.log_ratio(state, base)
         return FrictionFactors(f_wl=base.f_wl * torch.exp(g[..., 0]), f_wg=base.f_wg * torch.exp(g[..., 1]),
                                f_i=base.f_i * torch.exp(g[..., 2]))
 

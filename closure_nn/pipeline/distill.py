@@ -108,11 +108,13 @@ def sample_states(closure, rows: pd.DataFrame, settings: DistillSettings, solver
             s = local_state(c2, levels, kind)
             feats = closure_features(s)
             keep = _in_domain(closure, feats) if settings.in_domain_only else torch.ones(levels.shape, dtype=torch.bool)
-            y = torch.log(torch.stack(tuple(closure(s)), -1)) - torch.log(torch.stack(tuple(base(s)), -1))
+            fb = base(s)
+            y = torch.log(torch.stack(tuple(closure(s)), -1)) - torch.log(torch.stack(tuple(fb), -1))
             wavy = wave_threshold_mask(s, base) if kind == STRATIFIED else None
         wavy = torch.zeros_like(keep) if wavy is None else torch.broadcast_to(wavy, keep.shape)
         ok = keep & torch.isfinite(y).all(-1)
-        out.append(StateSample(kind, term_matrix(feats)[ok].numpy(), y[ok].numpy(), wavy[ok].numpy()))
+        terms = term_matrix(feats, torch.log(fb.f_i / fb.f_wg))
+        out.append(StateSample(kind, terms[ok].numpy(), y[ok].numpy(), wavy[ok].numpy()))
     return out
 
 

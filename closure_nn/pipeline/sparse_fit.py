@@ -6,8 +6,13 @@ the terms whose coefficient is below a threshold and refit on the rest, until th
 stops changing. Thresholds act on standardised coefficients :math:`|c_j|\,\mathrm{sd}(t_j)`, the
 effect of one standard deviation of the term on the target (natural-log units here).
 
-Every threshold of a grid gives a set of terms; among those sets (and the constant alone, and
-the empty model) the one with the smallest penalised criterion
+Every threshold of a grid gives a set of terms. STLSQ thresholds coefficient magnitudes, so
+strongly correlated terms (ln Re_G, ln Fr_G and ln(rho_G/rho_L) move together over a loop
+campaign) can keep large opposite coefficients until the threshold removes them all at once,
+and no small set appears on the path; for a library small enough (at most ``max_subsets``
+sets of up to ``max_terms`` terms) every such set is therefore also a candidate (best-subset
+selection). Among the candidate sets (and the constant alone, and the empty model) the one with
+the smallest penalised criterion
 
 .. math:: J = n \ln\big(\max(\mathrm{RSS}/n,\ s_0^2)\big) + \kappa\,k
 
@@ -18,6 +23,7 @@ an exact law is not padded with terms that fit the round-off). Plain numpy.
 """
 from __future__ import annotations
 
+import itertools
 import math
 from dataclasses import dataclass
 
@@ -62,7 +68,8 @@ def stlsq(X: np.ndarray, y: np.ndarray, threshold: float, max_iter: int = 20) ->
 
 
 def sparse_fit(X: np.ndarray, y: np.ndarray, names: list[str] | tuple[str, ...], *, max_terms: int = 4,
-               penalty: float | None = None, sd_floor: float = 1e-3, thresholds: np.ndarray | None = None) -> SparseFit:
+               penalty: float | None = None, sd_floor: float = 1e-3, thresholds: np.ndarray | None = None,
+               max_subsets: int = 5000) -> SparseFit:
     """Choose and fit a sparse model ``y ~ c0 + sum_j c_j X[:, j]`` (module docstring).
 
     Parameters
@@ -72,6 +79,7 @@ def sparse_fit(X: np.ndarray, y: np.ndarray, names: list[str] | tuple[str, ...],
     penalty : kappa, the criterion's price of one coefficient; default ln n (BIC).
     sd_floor : s_0, the residual standard deviation below which fits count as equal [target units].
     thresholds : STLSQ thresholds tried (default 40 values, 1e-4 to 3, geometric).
+    max_subsets : every set of up to ``max_terms`` terms is tried too when there are at most this many.
 
     >>> rng = np.random.default_rng(0)
     >>> X = rng.normal(size=(400, 5))
@@ -91,6 +99,9 @@ def sparse_fit(X: np.ndarray, y: np.ndarray, names: list[str] | tuple[str, ...],
         cols = stlsq(X, y, float(t))
         if len(cols) <= max_terms:
             supports.add(tuple(cols))
+    usable = [j for j in range(X.shape[1]) if X[:, j].std() > 0]
+    if sum(math.comb(len(usable), k) for k in range(1, max_terms + 1)) <= max_subsets:
+        supports |= {c for k in range(1, max_terms + 1) for c in itertools.combinations(usable, k)}
     tss = float(((y - y.mean()) ** 2).sum())
 
     def score(rss: float, k: int) -> float:
