@@ -25,14 +25,12 @@ from torch import nn
 from ..closures.neural import OUTPUT_NAMES, NeuralClosure, NeuralEvaluation
 from ..data.configurations import CONFIGURATION_CODE, SEPARATED_CONFIGURATIONS
 from ..data.features import frac_from_holdup
-from ..physics.geometry import STRATIFIED
 from ..physics.holdup_roots import solve_separated
 from ..physics.local_state import LocalState, local_state
 from ..physics.momentum import FrictionFactors, shear_stresses
 from ..physics.near_root import solve_separated_near
 from ..physics.patterns import THETA_DOWN, THETA_STEEP, kh_gas_velocity
-from ..physics.vocabulary import CODE, DISPERSED_BUBBLE, INTERMITTENT, STRATIFIED_PATTERNS
-from ..physics.vocabulary import ANNULAR as ANNULAR_PATTERN
+from ..physics.vocabulary import ANNULAR, CODE, CONFIG_STRATIFIED, DISPERSED_BUBBLE, INTERMITTENT, STRATIFIED_PATTERNS
 from .loss_batch import batch_conditions, batch_kinds, measured_state_rows, uncertainties
 from .loss_terms import (combined_residual_term, data_misfit_term, holdup_sensitivity, pattern_term,
                          phase_residual_term, prior_term, smoothness)
@@ -45,7 +43,7 @@ PATTERN_ROWS = ("data_first", "pattern_only", "observed")
 #: where the prior measures the distance to the baseline (see ``prior`` in :mod:`closure_nn.training.loss_terms`)
 PRIOR_SPACES = ("log_factor", "unbounded")
 _STRAT_CODES = tuple(CODE[p] for p in STRATIFIED_PATTERNS)
-_UNSTABLE_CODES = (CODE[INTERMITTENT], CODE[ANNULAR_PATTERN], CODE[DISPERSED_BUBBLE])
+_UNSTABLE_CODES = (CODE[INTERMITTENT], CODE[ANNULAR], CODE[DISPERSED_BUBBLE])
 
 
 @dataclass
@@ -279,7 +277,7 @@ class ClosureLoss(nn.Module):
         if not rows.any():
             return 0
         c = batch_conditions(batch, rows)
-        sol = solve_separated(c, closure, STRATIFIED, select=self.settings.select, n_grid=self.settings.n_grid)
+        sol = solve_separated(c, closure, CONFIG_STRATIFIED, select=self.settings.select, n_grid=self.settings.n_grid)
         ok = sol.found
         m = sol.state.u_G / kh_gas_velocity(c, sol.state).clamp_min(1e-12) - 1
         pen = pattern_term(m, strat[rows], self.settings.pattern_margin, self.settings.pattern_tolerance)
