@@ -212,7 +212,8 @@ def piece_text(factor: str, p: Piece, latex: bool = False) -> str:
     """``f_i / f_i,base = 2.31 * Re_G^-0.102 * (h/D)^0.61   [stratified]`` (or the LaTeX form)."""
     plain, tex = _FACTOR_TEX[factor]
     lead = math.exp(p.coef.get("1", 0.0))
-    parts, tparts = [f"{lead:.4g}"], [f"{lead:.4g}"]
+    mant, _, expo = f"{lead:.4g}".partition("e")
+    parts, tparts = [f"{lead:.4g}"], [rf"{mant}\times 10^{{{int(expo)}}}" if expo else mant]
     for name in TERM_NAMES:
         a = p.coef.get(name)
         if a is None:
