@@ -32,7 +32,7 @@ from closure_nn.physics.groups import closure_features
 from closure_nn.physics.local_state import local_state
 from closure_nn.physics.momentum import FrictionFactors
 from closure_nn.physics.vocabulary import CODE
-from closure_nn.pipeline.distill import distill, fidelity
+from closure_nn.pipeline.distill import DistillSettings, distill, fidelity, sample_states
 
 #: exponents and leading constants of the INVENTED truth (ratio to the baseline)
 F_I_STRAT = {"1": math.log(3.0), "ln_frac": 0.4, "ln_Fr_G": 0.3}
@@ -243,3 +243,15 @@ def test_distill_command_writes_formula_fidelity_and_a_closure_file(trained, cap
     assert "CAUTION" in text and "```latex" in text and "f_i / f_i,base" in text
     formula = load_saved_closure(run / "distilled.json")
     assert isinstance(formula, FormulaClosure) and "f_i" in formula.pieces
+
+
+def test_the_formula_carries_the_domain_it_was_fitted_on(trained, tmp_path):
+    """States inside the fitting states' box are in the formula's domain, a 300 mm pipe at 20 m/s
+    gas is not; the measured-data box comes from the network's measured rows (none here: outside)."""
+    rows = sample_design(trained["design"], 200, 7)
+    r = distill(trained["net"], rows)
+    fc = load_formula(save_formula(r.formula, tmp_path / "f.json"))
+    inside = torch.as_tensor(sample_states(trained["net"], rows, DistillSettings())[0].features)
+    s_out = local_state(make_conditions(vsl=0.05, vsg=40.0, D=0.3, rhog=3.0), torch.tensor([0.2]), "stratified")
+    assert bool(fc.in_domain(inside).all()) and not bool(fc.in_domain(closure_features(s_out))[0])
+    assert not bool(fc.in_measured_domain(inside).any())

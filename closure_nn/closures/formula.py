@@ -28,8 +28,11 @@ A factor with no piece for a state's region keeps the baseline there (ratio 1).
 On disk the formula is a JSON file of our own format ``closure-nn-formula`` (version 1):
 ``baseline`` (the :class:`~closure_nn.closures.baseline.BaselineClosure` keywords), ``bound``
 (per factor), ``terms`` (the library, for readers), ``pieces`` (per factor, a list of
-``{"region": ..., "coef": {term: value}}``), and free-form ``text``, ``latex``, ``source``,
-``fidelity`` and ``caution`` entries that the loader ignores.
+``{"region": ..., "coef": {term: value}}``), optional ``domain`` and ``measured_domain`` (per
+group of :data:`~closure_nn.physics.groups.FEATURE_NAMES`, ``lo`` and ``hi`` lists: the box of the
+states the formula was fitted on, and the box of the learned closure's measured rows; the line
+flags stations outside them as it does for a neural closure), and free-form ``text``, ``latex``,
+``source``, ``fidelity`` and ``caution`` entries that the loader ignores.
 """
 from __future__ import annotations
 
@@ -142,8 +145,10 @@ class FormulaClosure(Closure):
     """
 
     def __init__(self, pieces: dict, baseline: BaselineClosure | dict | None = None,
-                 bound: dict | None = None) -> None:
+                 bound: dict | None = None, domain: dict | None = None, measured_domain: dict | None = None) -> None:
         super().__init__()
+        self.domain = _box(domain, "domain")
+        self.measured_domain = _box(measured_domain, "measured_domain")
         bad = set(pieces) - set(FACTORS)
         if bad:
             raise ValueError(f"formula: unknown factor(s) {sorted(bad)}; known: {', '.join(FACTORS)}")
@@ -188,10 +193,24 @@ class FormulaClosure(Closure):
         return FrictionFactors(f_wl=base.f_wl * torch.exp(g[..., 0]), f_wg=base.f_wg * torch.exp(g[..., 1]),
                                f_i=base.f_i * torch.exp(g[..., 2]))
 
+    def in_domain(self, features: torch.Tensor) -> torch.Tensor:
+        """Bool ``(*batch)``: raw groups ``(*batch, F)`` inside the box of the fitting states (all
+        True without a stored box)."""
+        return _inside(self.domain, features)
+
+    def in_measured_domain(self, features: torch.Tensor) -> torch.Tensor:
+        """Bool ``(*batch)``: inside the box of the learned closure's measured rows (all False
+        without one: nothing is known to be measured)."""
+        if self.measured_domain is None:
+            return torch.zeros(torch.as_tensor(features).shape[:-1], dtype=torch.bool)
+        return _inside(self.measured_domain, features)
+
     def to_dict(self) -> dict:
         """The JSON-able description (without the free-form entries; see :func:`save_formula`)."""
         b = self.baseline
-        return {"format": FORMULA_FORMAT, "format_version": FORMULA_VERSION,
+        boxes = {k: {"lo": v[0].tolist(), "hi": v[1].tolist(), "features": list(FEATURE_NAMES)}
+                 for k, v in (("domain", self.domain), ("measured_domain", self.measured_domain)) if v is not None}
+        return {**boxes, "format": FORMULA_FORMAT, "format_version": FORMULA_VERSION,
                 "baseline": {"wall": b.wall_name, "interface": b.interface_name, "annular_interface": b.annular_name,
                              "interface_kwargs": dict(b.interface_kwargs)},
                 "bound": dict(self.bound), "terms": {n: TERMS[n][2] for n in TERM_NAMES},
@@ -203,6 +222,24 @@ class FormulaClosure(Closure):
 
     def describe(self) -> dict:
         return {**super().describe(), **self.to_dict(), "text": self.text()}
+
+
+def _box(spec: dict | None, what: str) -> tuple[torch.Tensor, torch.Tensor] | None:
+    """``{"lo": [...], "hi": [...]}`` (one value per feature, None for an open side) as tensors."""
+    if spec is None:
+        return None
+    lo = torch.tensor([-math.inf if v is None else float(v) for v in spec["lo"]], dtype=torch.float64)
+    hi = torch.tensor([math.inf if v is None else float(v) for v in spec["hi"]], dtype=torch.float64)
+    if lo.shape != (len(FEATURE_NAMES),) or hi.shape != lo.shape:
+        raise ValueError(f"{what}: expected lo and hi with one value per feature ({len(FEATURE_NAMES)})")
+    return lo, hi
+
+
+def _inside(box, features) -> torch.Tensor:
+    x = torch.as_tensor(features, dtype=torch.float64)
+    if box is None:
+        return torch.ones(x.shape[:-1], dtype=torch.bool)
+    return ((x >= box[0]) & (x <= box[1])).all(dim=-1)
 
 
 _FACTOR_TEX = {"f_wl": ("f_WL", r"f_{WL}"), "f_wg": ("f_WG", r"f_{WG}"), "f_i": ("f_i", r"f_{i}")}
@@ -265,7 +302,8 @@ def load_formula(path: str | os.PathLike) -> FormulaClosure:
     if meta.get("format_version") != FORMULA_VERSION:
         raise InputError(f"{p}: {FORMULA_FORMAT} version {meta.get('format_version')!r}; this code reads {FORMULA_VERSION}")
     try:
-        fc = FormulaClosure(meta["pieces"], baseline=meta.get("baseline"), bound=meta.get("bound"))
+        fc = FormulaClosure(meta["pieces"], baseline=meta.get("baseline"), bound=meta.get("bound"),
+                            domain=meta.get("domain"), measured_domain=meta.get("measured_domain"))
     except (KeyError, TypeError, ValueError) as exc:
         raise InputError(f"{p}: bad formula description ({exc})") from None
     fc.formula_metadata = meta

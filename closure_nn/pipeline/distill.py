@@ -61,6 +61,7 @@ class StateSample:
     terms: np.ndarray
     y: np.ndarray
     wavy: np.ndarray
+    features: np.ndarray | None = None  #: the raw groups ``(n, F)`` of the states
 
 
 @dataclass
@@ -114,7 +115,7 @@ def sample_states(closure, rows: pd.DataFrame, settings: DistillSettings, solver
         wavy = torch.zeros_like(keep) if wavy is None else torch.broadcast_to(wavy, keep.shape)
         ok = keep & torch.isfinite(y).all(-1)
         terms = term_matrix(feats, torch.log(fb.f_i / fb.f_wg))
-        out.append(StateSample(kind, terms[ok].numpy(), y[ok].numpy(), wavy[ok].numpy()))
+        out.append(StateSample(kind, terms[ok].numpy(), y[ok].numpy(), wavy[ok].numpy(), feats[ok].numpy()))
     return out
 
 
@@ -122,8 +123,10 @@ def _fit_one(X: np.ndarray, y: np.ndarray, s: DistillSettings):
     return sparse_fit(X, y, TERM_NAMES, max_terms=s.max_terms, penalty=s.penalty, sd_floor=s.sd_floor)
 
 
-def fit_formula(samples: list[StateSample], baseline: BaselineClosure, bound: dict, settings: DistillSettings) -> DistillResult:
-    """One sparse formula per factor and region (module docstring, step 2)."""
+def fit_formula(samples: list[StateSample], baseline: BaselineClosure, bound: dict, settings: DistillSettings,
+                measured: dict | None = None) -> DistillResult:
+    """One sparse formula per factor and region (module docstring, step 2); the formula's domain is
+    the box of the states' groups, ``measured`` the box of the measured rows (or None)."""
     pieces: dict[str, list[Piece]] = {k: [] for k in FACTORS}
     fits, counts = [], {}
     for smp in samples:
@@ -153,7 +156,13 @@ def fit_formula(samples: list[StateSample], baseline: BaselineClosure, bound: di
                     pieces[k].append(Piece(name, f.coef))
                 fits.append({"factor": k, "region": name, "n": int(m.sum()), "terms": len(f.coef),
                              "rms_log_error": f.rms, "r2": f.r2, "target_rms": float(np.sqrt(np.mean(smp.y[m, j] ** 2)))})
-    formula = FormulaClosure({k: v for k, v in pieces.items() if v}, baseline=baseline, bound=bound)
+    feats = [smp.features for smp in samples if smp.features is not None and len(smp.features)]
+    domain = None
+    if feats:
+        allf = np.concatenate(feats)
+        domain = {"lo": allf.min(0).tolist(), "hi": allf.max(0).tolist()}
+    formula = FormulaClosure({k: v for k, v in pieces.items() if v}, baseline=baseline, bound=bound, domain=domain,
+                             measured_domain=measured)
     return DistillResult(formula=formula, fits=fits, n_states=counts)
 
 
@@ -173,7 +182,22 @@ def distill(closure, fit_rows: pd.DataFrame, settings: DistillSettings | None = 
     samples = sample_states(closure, fit_rows, s, solver)
     if not samples or sum(len(x.y) for x in samples) == 0:
         raise ValueError("distill: no state of the fitting conditions lies in the closure's training domain")
-    return fit_formula(samples, baseline_of_closure(closure), network_bound(closure), s)
+    return fit_formula(samples, baseline_of_closure(closure), network_bound(closure), s, measured_box(closure))
+
+
+def measured_box(closure) -> dict | None:
+    """The box (raw groups) of a neural closure's measured-data points (an ensemble: the
+    intersection of its members' boxes); None without measured rows."""
+    members = list(getattr(closure, "members", [closure]))
+    los, his = [], []
+    for m in members:
+        pts = getattr(m, "measured_points", None)
+        if pts is None or pts.shape[0] == 0:
+            return None
+        raw = pts * m.feature_std + m.feature_mean
+        los.append(raw.min(0).values)
+        his.append(raw.max(0).values)
+    return {"lo": torch.stack(los).max(0).values.tolist(), "hi": torch.stack(his).min(0).values.tolist()}
 
 
 def fidelity(models: dict, dev_rows: pd.DataFrame, grid: pd.DataFrame, reference: str = "network",
