@@ -170,20 +170,22 @@ def test_dispersed_bubble_horizontal_agrees_with_td76_point_and_migration_contro
 # ---- bubble migration (Barnea 1987) and BST82 --------------------------------------------------
 
 def test_bubble_migration_critical_angle():
-    # B87: cos/sin^2 = (3/4) cos45 U0^2/(g D) C_L gamma^2 / 2; the critical angle in closed form is
+    # B87: cos/sin^2 = (3/4) cos45 (U0^2/g) C_L gamma^2 / D (the form of two independent open
+    # implementations of B87 as well; earlier versions had a spurious 1/2); the critical angle in closed form is
     # cos = (sqrt(1 + 4 R^2) - 1)/(2 R). Harmathy (1960) U0 = 1.53 (g drho sigma / rhol^2)^0.25 =
     # 0.249 m/s for air-water. Vertical pipes always allow bubbles; wider pipes need steeper ones.
     u0 = 1.53 * (G_STANDARD * 996.8 * 0.072 / 998**2) ** 0.25
     assert float(bubble_rise_velocity(make_conditions(vsl=1.0, vsg=0.1, D=0.1))) == pytest.approx(u0, rel=1e-9)
     crit = {}
     for D in (0.05, 0.1, 0.2):
-        R = 0.75 * math.cos(math.pi / 4) * u0**2 / (G_STANDARD * D) * 0.8 * 1.5**2 / 2
+        R = 0.75 * math.cos(math.pi / 4) * u0**2 / G_STANDARD * 0.8 * 1.5**2 / D
         deg = math.degrees(math.acos((math.sqrt(1 + 4 * R**2) - 1) / (2 * R)))
         th = torch.tensor([deg - 0.05, deg + 0.05, 90.0], dtype=torch.float64)
         got = bubble_migration_allowed(make_conditions(vsl=1.0, vsg=0.1, D=D, theta=torch.deg2rad(th))).tolist()
         assert got == [False, True, True]
         crit[D] = deg
     assert 60.0 < crit[0.05] < crit[0.1] < crit[0.2] < 90.0
+    assert crit[0.05] == pytest.approx(83.2, abs=0.1)  # evaluated by hand from the closed form
 
 
 def test_bubble_pattern_needs_a_steep_pipe_not_a_fixed_angle():
@@ -196,14 +198,15 @@ def test_bubble_pattern_needs_a_steep_pipe_not_a_fixed_angle():
 
 
 def test_bst82_stratified_to_annular_limit_and_effect():
-    # BST82: u_L,A = (g D (1 - rhog/rhol) cos / f_L)^0.5 -> 0 at -90 deg (a vertical layer is a
-    # falling film); evaluated by hand at -60 deg, f_L = 0.01: (9.80665 0.05 0.9988 0.5/0.01)^0.5.
+    # BST82 as used by B87: u_L,A = (g D (1 - h_L/D) cos / f_L)^0.5 -> 0 at -90 deg (a vertical
+    # layer is a falling film); evaluated by hand at -60 deg, f_L = 0.01, at the layer's own h/D.
     c = make_conditions(vsl=0.1, vsg=1.0, D=0.05, theta=torch.tensor([-math.pi / 3, -math.pi / 2 + 1e-9], dtype=torch.float64))
     sol = solve_separated(c, BASE)
     u = bst_annular_liquid_velocity(c, sol.state, torch.full((2,), 0.01, dtype=torch.float64))
-    assert float(u[0]) == pytest.approx(math.sqrt(G_STANDARD * 0.05 * (1 - 1.2 / 998) * 0.5 / 0.01), rel=1e-9)
+    h = float(sol.frac[0])
+    assert float(u[0]) == pytest.approx(math.sqrt(G_STANDARD * 0.05 * (1 - h) * 0.5 / 0.01), rel=1e-9)
     assert float(u[1]) < 1e-3
-    # a thin, fast, Kelvin-Helmholtz-stable layer at -85 deg is annular by BST82 (u_L 3.96 > 2.91 m/s)
+    # a thin, fast, Kelvin-Helmholtz-stable layer at -85 deg is annular by BST82 (u_L 3.96 > 2.72 m/s)
     cond = make_conditions(vsl=[0.3], vsg=[0.5], D=0.05, theta=math.radians(-85))
     s = solve_separated(cond, BASE)
     assert bool((s.state.u_G < kh_gas_velocity(cond, s.state)).all())

@@ -15,39 +15,54 @@ use whatever closure produced the stratified equilibrium:
 * **Taitel, Barnea & Dukler (1980)**, AIChE J. 26(3):345-354, doi:10.1002/aic.690260304
   (TBD80), vertical upflow, extended to inclined upflow by Barnea, Shoham, Taitel & Dukler
   (1985), Chem. Eng. Sci. 40(1):131-136 with the sin(theta) factor of the bubble rise velocity in
-  the bubble-to-slug line (from memory). Churn flow counts as ``intermittent``.
-* **Barnea (1986, 1987)** and **Barnea, Shoham & Taitel (1982)** (BST82), downward flow and the
-  unified criteria: :mod:`closure_nn.physics.transitions_unified` (dispersed bubble at any
-  inclination, annular film stability and blockage, bubble migration, stratified to annular in
-  downward pipes).
+  the bubble-to-slug line (BSTD85, from memory): the smallest pipe with bubble flow, the
+  bubble/slug line (void 0.25) and the annular line are used in steep upflow; TBD80's dispersed
+  line (:func:`tbd_dispersed_vm`) is kept as a published vertical reference only (Barnea's 1986
+  dispersed-bubble criterion replaces it at every inclination, as in B87). Churn counts as
+  ``intermittent``.
+* **Barnea (1986, 1987)** and **Barnea, Shoham & Taitel (1982)** (BST82), the unified criteria
+  and downward flow: :mod:`closure_nn.physics.transitions_unified` (dispersed bubble, annular film
+  stability and blockage, bubble migration, stratified to annular and smooth to wavy in downward
+  pipes).
 
-Decision tree (codes from :data:`closure_nn.physics.vocabulary.CODE`; bands of theta, + upward):
+Decision tree (codes from :data:`closure_nn.physics.vocabulary.CODE`; theta + upward). Every
+criterion is applied only inside the inclinations its source covers:
 
 1. vsg <= 0 -> ``single_phase_liquid`` (also when both rates are zero); vsl <= 0 < vsg ->
    ``single_phase_gas``.
-2. **Steep upflow**, theta >= ``theta_steep`` (20 deg, our choice; Barnea 1987 found stratified
-   upflow only at small angles, from memory): TBD80 criteria, which need no equilibrium --
-   annular if :func:`tbd_annular_vsg` is reached; else dispersed bubble if u_M reaches
-   :func:`tbd_dispersed_vm` and the no-slip void vsg/u_M < 0.52; else bubble if the pipe is
-   wide enough (:func:`tbd_bubble_min_diameter`), bubbles do not migrate to the upper wall
-   (:func:`~closure_nn.physics.transitions_unified.bubble_migration_allowed`, Barnea 1987) and
-   the void fraction is below 0.25 (:func:`tbd_bubble_slug_vsl`); else intermittent.
-3. **Stratified**, any theta < ``theta_steep`` with a stratified equilibrium: Kelvin-Helmholtz
-   stable (TD76) -> stratified wavy or smooth; but in downward pipes (theta < 0) annular when the
-   layer is fast enough to throw drops onto the upper wall
-   (:func:`~closure_nn.physics.transitions_unified.bst_annular_liquid_velocity`, BST82), and
-   that annular film intermittent if it bridges the pipe or is unstable (Barnea 1986).
-4. **Near horizontal, not stratified**: ``theta_down`` (-10 deg, the steepest downward angle of
-   the TD76 comparison above) <= theta < ``theta_steep``: TD76 -- h/D >= 0.5 -> intermittent unless
-   dispersed bubble (TD76 turbulence criterion), h/D < 0.5 -> annular.
-5. **Steep downflow**, theta < ``theta_down``, and every state below ``theta_steep`` without a
-   stratified equilibrium: the unified criteria, which need no equilibrium -- dispersed bubble
-   by Barnea (1986) (bubble size against coalescence and migration; this also overrides a
-   Kelvin-Helmholtz-stable layer, since bubbles that turbulence keeps small and off the upper
-   wall cannot form one); else annular if the film of Barnea's film equation is thinner than
-   blockage (H_LF < 0.24) and stable; else intermittent. At -90 deg the Kelvin-Helmholtz limit is
+2. **Dispersed bubble**, every inclination: Barnea (1986) (bubbles that turbulence keeps smaller
+   than both the deforming size and the size that migrates to the upper wall, no-slip void
+   < 0.52); near horizontal also TD76's turbulence criterion on a Kelvin-Helmholtz-unstable layer
+   (step 4).
+3. **Stratified**, theta < ``theta_steep`` (20 deg; stratified upflow exists only at small upward
+   angles, Barnea et al. 1985 and B87, from memory: above it the closure's thinnest layer is not
+   asked, and with the Andritsos-Hanratty interface it would call thin layers under 15-25 m/s of
+   gas stratified at 30-50 deg) with a stratified equilibrium of the closure: Kelvin-Helmholtz
+   stable (TD76, g cos theta, the form B87 uses at every angle) -> stratified, unless in a
+   downward pipe (theta < 0) the layer is fast enough to throw drops onto the upper wall (BST82,
+   :func:`~closure_nn.physics.transitions_unified.bst_annular_liquid_velocity`), which makes it
+   non-stratified (step 5 decides). Wavy if wind makes waves (TD76 Jeffreys criterion) or, for
+   theta < 0, if gravity does (BST82 Froude number >= 1.5,
+   :func:`~closure_nn.physics.transitions_unified.bst_wavy_froude`; B87 uses only the latter
+   below 0 deg: we keep both mechanisms, either one makes waves); else smooth.
+4. **Non-stratified near horizontal**, ``theta_down`` (-10 deg) <= theta < ``theta_steep``, with
+   an equilibrium and not thrown by BST82: TD76 -- h/D >= 0.5 -> intermittent (dispersed bubble
+   by TD76's turbulence criterion too), h/D < 0.5 -> annular. TD76 was compared with data to
+   +-10 deg by Barnea, Shoham, Taitel & Dukler (1980) and used for low upward angles by BSTD85
+   (from memory).
+5. **Non-stratified elsewhere.** Steep upflow, theta >= ``theta_steep`` (BSTD85's extension of
+   TBD80 to inclined upflow, from memory): annular if vsg reaches TBD80's Kutateladze line
+   (:func:`tbd_annular_vsg`). Steep downflow (theta < -10 deg), layers thrown by BST82 and states
+   without an equilibrium: annular if the film of Barnea's (1986) film equation is thinner than
+   blockage (H_LF < 0.24) and stable. Otherwise, in upflow, ``bubble`` if the pipe is wider than
+   TBD80's smallest bubble-flow pipe (:func:`tbd_bubble_min_diameter`), bubbles do not migrate
+   to the upper wall (:func:`~closure_nn.physics.transitions_unified.bubble_migration_allowed`,
+   B87; replaces the fixed 60 deg of earlier versions) and the void is below 0.25
+   (:func:`tbd_bubble_slug_vsl`); else ``intermittent``. At -90 deg the Kelvin-Helmholtz limit is
    zero (cos theta = 0), so vertical downflow is annular (falling film), intermittent or
-   dispersed bubble, as BST82 observed.
+   dispersed bubble, as BST82 observed. B86's film criterion is not used in steep upflow: in a
+   51 mm vertical air-water pipe it puts annular flow at v_SG ~ 22-24 m/s against TBD80's
+   14.6 m/s, and TBD80's line is the one its authors checked against vertical data.
 
 Interface law and the pattern decision. The Kelvin-Helmholtz limit, the smooth/wavy line, the
 TD76 level and turbulence criteria and the BST82 layer velocity are all evaluated at the
@@ -61,12 +76,13 @@ interface (f_i = f_G), so the baseline's Kelvin-Helmholtz line sits at somewhat 
 than the published map. We keep one closure for holdup, pressure gradient and pattern, so the
 pattern is consistent with the equilibrium the solver reports; ``BaselineClosure(interface=
 'smooth')`` reproduces the TD76 map. The unified criteria of steps 2 and 5 use fixed published
-friction laws and do not move with the closure.
+friction laws and do not move with the closure; the BST82 criteria of step 3 use the closure's
+layer and f_wl, so they move with it.
 
-Validity: TD76 near-horizontal pipes, Newtonian fluids, long-wave inviscid Kelvin-Helmholtz,
-sheltering coefficient s = 0.01; TBD80 vertical upward air-water-like systems, D ~ 2.5-5 cm
-(from memory); Barnea (1986, 1987) and BST82 air-water, D ~ 2.5-5 cm, the whole range of
-inclinations (from memory).
+Validity: TD76 near-horizontal pipes (+-10 deg, BSTD80), Newtonian fluids, long-wave inviscid
+Kelvin-Helmholtz, sheltering coefficient s = 0.01; TBD80/BSTD85 upward air-water-like systems,
+D ~ 2.5-5 cm (from memory); Barnea (1986, 1987) and BST82 air-water, D ~ 2.5-5 cm, the whole
+range of inclinations (from memory).
 """
 from __future__ import annotations
 
@@ -79,16 +95,18 @@ from .geometry import STRATIFIED
 from .holdup_roots import SeparatedSolution
 from .local_state import LocalState
 from .transitions_unified import (
-    barnea_annular_ok, barnea_dispersed, bst_annular_liquid_velocity, bubble_migration_allowed,
+    FROUDE_WAVY, barnea_annular_ok, barnea_dispersed, bst_annular_liquid_velocity, bst_wavy_froude,
+    bubble_migration_allowed,
 )
 from .vocabulary import (
     ANNULAR, BUBBLE, CODE, DISPERSED_BUBBLE, INTERMITTENT, SINGLE_PHASE_GAS, SINGLE_PHASE_LIQUID,
     STRATIFIED_SMOOTH, STRATIFIED_WAVY,
 )
 
-#: inclination [rad] from which upward flow is classified by TBD80 (our choice, see module doc)
+#: upward inclination [rad] from which no stratified layer is considered and the steep-upflow
+#: rules apply (module doc, steps 3 and 5)
 THETA_STEEP = math.radians(20.0)
-#: steepest downward inclination [rad] still classified by TD76 when not stratified (module doc)
+#: steepest downward inclination [rad] still classified by TD76 when not stratified (step 4)
 THETA_DOWN = math.radians(-10.0)
 #: Jeffreys sheltering coefficient used by TD76 for the smooth/wavy transition [-]
 S_WAVE_TD76 = 0.01
@@ -249,18 +267,13 @@ def tbd_annular_vsg(cond: Conditions) -> torch.Tensor:
     return 3.1 * (cond.sigma * cond.g * drho) ** 0.25 / torch.sqrt(cond.rhog)
 
 
-def _tbd_codes(cond: Conditions, theta_bubble: float | None) -> torch.Tensor:
-    """TBD80 upward-flow pattern codes (no equilibrium needed); module docstring, step 2."""
-    vm = cond.vm
-    void_ns = cond.vsg / vm.clamp_min(_TINY)  # no-slip void fraction
-    annular = cond.vsg >= tbd_annular_vsg(cond)
-    dispersed = (vm >= tbd_dispersed_vm(cond)) & (void_ns < 0.52)
+def _bubble_rows(cond: Conditions, theta_bubble: float | None) -> torch.Tensor:
+    """True where upflow bubble flow exists at these rates (module docstring, step 5): a pipe wide
+    enough (TBD80), bubbles kept off the upper wall (B87, or a fixed angle ``theta_bubble``), and
+    the void below 0.25 (TBD80/BSTD85)."""
     no_wall = bubble_migration_allowed(cond) if theta_bubble is None else cond.theta >= theta_bubble
-    bubble = (cond.D > tbd_bubble_min_diameter(cond)) & no_wall & (cond.vsl >= tbd_bubble_slug_vsl(cond))
-    code = torch.full(cond.shape, CODE[INTERMITTENT], dtype=torch.int64)
-    code = torch.where(bubble, CODE[BUBBLE], code)
-    code = torch.where(dispersed, CODE[DISPERSED_BUBBLE], code)
-    return torch.where(annular, CODE[ANNULAR], code)
+    wide = cond.D > tbd_bubble_min_diameter(cond)
+    return (cond.theta > 0) & wide & no_wall & (cond.vsl >= tbd_bubble_slug_vsl(cond))
 
 
 def _on_rows(fn, cond: Conditions, rows: torch.Tensor) -> torch.Tensor:
@@ -273,14 +286,15 @@ def _on_rows(fn, cond: Conditions, rows: torch.Tensor) -> torch.Tensor:
 
 
 def _stratified_codes(cond: Conditions, strat: SeparatedSolution, s_wave: float) -> tuple[torch.Tensor, torch.Tensor, torch.Tensor]:
-    """(stable, thrown, code) at the closure's stratified equilibrium: KH-stable layers are
-    stratified smooth/wavy (TD76), or, where ``thrown``, annular in downward pipes by BST82 (the
-    caller checks that film by Barnea 1986); module docstring, step 3."""
+    """(stable, thrown, code) at the closure's stratified equilibrium: Kelvin-Helmholtz-stable
+    layers (TD76) are stratified wavy or smooth (TD76 wind waves, or BST82 gravity waves below
+    0 deg), but in downward pipes ``thrown`` ones wet the upper wall (BST82); module doc, step 3."""
     s = strat.state
     stable = strat.found & (s.u_G < kh_gas_velocity(cond, s))
-    wavy = s.u_G >= wavy_gas_velocity(cond, s, s_wave)
+    down = cond.theta < 0
+    wavy = (s.u_G >= wavy_gas_velocity(cond, s, s_wave)) | (down & (bst_wavy_froude(cond, s) >= FROUDE_WAVY))
     code = torch.where(wavy, CODE[STRATIFIED_WAVY], CODE[STRATIFIED_SMOOTH])
-    thrown = (cond.theta < 0) & (s.u_L >= bst_annular_liquid_velocity(cond, s, strat.friction.f_wl))
+    thrown = down & (s.u_L >= bst_annular_liquid_velocity(cond, s, strat.friction.f_wl))
     return stable, thrown, code
 
 
@@ -310,14 +324,15 @@ def classify(
     s_wave : float
         Jeffreys sheltering coefficient [-] of the smooth/wavy transition (TD76: 0.01).
     theta_steep : float
-        Inclination [rad] from which upward flow follows TBD80 (default 20 deg, our choice).
+        Upward inclination [rad] from which no stratified layer is considered and steep-upflow
+        rules apply (default 20 deg).
     theta_bubble : float or None
         None (default): bubble flow where bubbles do not migrate to the upper wall (Barnea 1987,
         :func:`~closure_nn.physics.transitions_unified.bubble_migration_allowed`); an angle [rad]:
         the fixed threshold of earlier versions (60 deg), kept for comparisons.
     theta_down : float
         Steepest downward inclination [rad] at which a non-stratified state is classified by TD76
-        (default -10 deg); below it the unified criteria of Barnea (1986) decide.
+        (default -10 deg); below it the unified criteria of Barnea (1986, 1987) decide.
 
     The decision tree, equations and sources are in the module docstring. No gradients flow
     through the (discrete) result.
@@ -343,25 +358,20 @@ def classify(
                          f"solution has {tuple(strat.frac.shape)}")
     with torch.no_grad():
         steep_up = cond.theta >= theta_steep
-        near = strat.found & (cond.theta >= theta_down) & ~steep_up
-        unified = ~steep_up & ~near  # steep downflow, or no equilibrium below theta_steep
+        layer = strat.found & ~steep_up
         stable, thrown, strat_code = _stratified_codes(cond, strat, s_wave)
-        stable = stable & ~steep_up
-        thrown = stable & thrown
-        # the equilibrium-free criteria only where they decide (the film equation costs a solve)
-        film_ok = _on_rows(barnea_annular_ok, cond, unified | thrown)
-        dispersed = _on_rows(barnea_dispersed, cond, unified)
-        code = torch.full(cond.shape, CODE[INTERMITTENT], dtype=torch.int64)
+        thrown = layer & stable & thrown
+        stable = layer & stable & ~thrown
+        near = layer & ~thrown & (cond.theta >= theta_down)
+        dispersed = barnea_dispersed(cond)  # step 2 (closed form, every row)
+        unified = ~steep_up & ~near & ~stable & ~dispersed  # step 5; the film equation costs a solve
+        film_ok = _on_rows(barnea_annular_ok, cond, unified)
+        code = torch.where(_bubble_rows(cond, theta_bubble), CODE[BUBBLE], CODE[INTERMITTENT])
+        code = torch.where(film_ok | (steep_up & (cond.vsg >= tbd_annular_vsg(cond))), CODE[ANNULAR], code)
         if bool(near.any()):
             code = torch.where(near, _td_nonstratified_codes(cond, strat), code)
-        film_code = torch.where(film_ok, CODE[ANNULAR], CODE[INTERMITTENT])
-        code = torch.where(unified, film_code, code)
-        strat_code = torch.where(thrown, film_code, strat_code)
         code = torch.where(stable, strat_code, code)
-        # dispersed bubble overrides a stable layer in the unified band (step 5)
-        code = torch.where(unified & dispersed, CODE[DISPERSED_BUBBLE], code)
-        if bool(steep_up.any()):
-            code = torch.where(steep_up, _tbd_codes(cond, theta_bubble), code)
+        code = torch.where(dispersed, CODE[DISPERSED_BUBBLE], code)
         code = torch.where((cond.vsl <= 0) & (cond.vsg > 0), CODE[SINGLE_PHASE_GAS], code)
         code = torch.where(cond.vsg <= 0, CODE[SINGLE_PHASE_LIQUID], code)
     return code.to(torch.int64)

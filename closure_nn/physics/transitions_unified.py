@@ -1,11 +1,15 @@
 r"""Flow-pattern transitions of the unified model (Barnea 1986, 1987) and of downward flow (BST82).
 
-Equilibrium-free criteria valid over the whole range of inclinations, used by
-:func:`closure_nn.physics.patterns.classify` where the Taitel & Dukler (1976) criteria lose their
-meaning (steep downward flow) and, for bubble flow, in steep upward flow. Every function is plain
-vectorised float64 torch over any batch shape ``(*batch)``; SI units; theta in rad, + upward.
+Criteria valid over the whole range of inclinations, used by
+:func:`closure_nn.physics.patterns.classify` (its module docstring has the decision tree): the
+annular film and dispersed bubble need no stratified equilibrium; the BST82 criteria of a downward
+layer are evaluated at the closure's own equilibrium. Every function is plain vectorised float64
+torch over any batch shape ``(*batch)``; SI units; theta in rad, + upward.
 
-Sources (the equations below are written from memory of the papers; each docstring says so):
+Sources (the equations are written from memory of the papers, each docstring says so; the forms
+of the film equation, film instability, blockage, dispersed-bubble diameters, bubble migration and
+both BST82 criteria were compared, when written, with independent open implementations of B87 and
+agree; tests/test_transitions_sources.py checks each against a published point, limit or line):
 
 * Barnea, D. (1986), "Transition from annular flow and from dispersed bubble flow - unified
   models for the whole range of pipe inclinations", Int. J. Multiphase Flow 12(5):733-744,
@@ -43,9 +47,11 @@ from .local_state import LocalState
 H_BLOCKAGE = 0.24
 #: closest packing of bubbles: no dispersed bubble flow at a no-slip void above this (TBD80, B86) [-]
 VOID_PACKING = 0.52
-#: bubble lift coefficient C_L and shape factor gamma of the bubble-migration criterion (B87; gamma
-#: 1.1-1.5 in the paper, from memory; we take the upper end, the smallest bubble-free band)
+#: bubble lift coefficient C_L and distortion coefficient gamma of the bubble-migration criterion
+#: (B87; gamma 1.1-1.5 in the paper, from memory; we take the upper end, the widest bubble band)
 LIFT_COEF, GAMMA_BUBBLE = 0.8, 1.5
+#: Froude number u_L / (g h_L)^(1/2) above which a downward stratified layer is wavy (BST82) [-]
+FROUDE_WAVY = 1.5
 _TINY = 1e-300
 
 
@@ -207,48 +213,73 @@ def bubble_migration_allowed(cond: Conditions, lift: float = LIFT_COEF, gamma: f
     r"""True where bubbles do not reach the upper wall, so bubble flow can exist (Barnea 1987).
 
     .. math::
-        \frac{\cos\theta}{\sin^2\theta} \le \frac34\cos 45^\circ\,\frac{U_0^2}{g D}\,\frac{C_L\gamma^2}{2}
+        \frac{\cos\theta}{\sin^2\theta} \le \frac34\cos 45^\circ\,\frac{U_0^2}{g}\,\frac{C_L\gamma^2}{D}
 
-    A bubble crossing the pipe by buoyancy (its cross-stream speed U_0 cos(theta)) while the
-    liquid's lift and turbulence keep it off the wall; a bubble at the wall coalesces into a
-    Taylor bubble. U_0 from :func:`bubble_rise_velocity`, lift coefficient C_L = 0.8, shape factor
-    gamma (1.1-1.5; we take 1.5). Source: Barnea (1987) (form and constants from memory).
-    Replaces the fixed 60 deg of earlier versions: about 88 deg for air-water in a 10 cm pipe
-    (U_0^2/(g D) = 0.063), steeper in wider pipes, shallower for small pipes or large rise
-    velocities (doctest). Only meaningful for upward flow (theta > 0).
+    A bubble rising at U_0 along a zigzag path (45 deg) drifts across the pipe by buoyancy while
+    the liquid's lift keeps it off the wall; a bubble at the upper wall coalesces into a Taylor
+    bubble, so bubble flow needs a steep pipe. U_0 from :func:`bubble_rise_velocity`, lift
+    coefficient C_L = 0.8, bubble distortion coefficient gamma (1.1-1.5 in B87; we take 1.5, the
+    widest bubble band). Source: Barnea (1987), the bubble-migration criterion (from memory; the
+    form, with the pipe diameter D in the denominator and no further factor, agrees with two
+    independent open implementations of B87 read when this was written). The critical angle is
+    about 77 deg for air-water in a 25 mm pipe, 83 deg at 51 mm and 87 deg at 100 mm (doctest):
+    steeper in wider pipes. Only meaningful for upward flow (theta > 0); False for theta <= 0.
 
     >>> from closure_nn.physics.conditions import make_conditions
-    >>> deg = torch.tensor([60.0, 85.0, 89.0, 90.0], dtype=torch.float64)
+    >>> deg = torch.tensor([60.0, 85.0, 87.0, 90.0], dtype=torch.float64)
     >>> bubble_migration_allowed(make_conditions(vsl=1.0, vsg=0.1, D=0.1, theta=torch.deg2rad(deg))).tolist()
     [False, False, True, True]
     """
     sin = torch.sin(cond.theta)
     lhs = torch.cos(cond.theta).clamp_min(0.0) / (sin**2).clamp_min(_TINY)
-    rhs = 0.75 * math.cos(math.pi / 4) * bubble_rise_velocity(cond) ** 2 / (cond.g * cond.D) * lift * gamma**2 / 2
+    rhs = 0.75 * math.cos(math.pi / 4) * bubble_rise_velocity(cond) ** 2 / cond.g * lift * gamma**2 / cond.D
     return (sin > 0) & (lhs <= rhs)
 
 
 def bst_annular_liquid_velocity(cond: Conditions, s: LocalState, f_wl: torch.Tensor) -> torch.Tensor:
     r"""In-situ liquid velocity from which downward stratified flow turns annular [m/s] (BST82).
 
-    .. math:: u_{L,A} = \sqrt{\frac{g D\,(1 - \rho_G/\rho_L)\cos\theta}{f_L}}
+    .. math:: u_{L,A} = \sqrt{\frac{g D\,(1 - h_L/D)\cos\theta}{f_L}}
 
     At high liquid rates in downward pipes the layer is thin and fast; drops torn from its wavy
-    surface wet the upper wall and a film forms around the circumference. Annular when the
-    stratified layer's u_L >= u_L,A. f_L is the closure's Fanning liquid wall factor at its
-    stratified equilibrium (BST82 used Taitel & Dukler's Blasius form), so a learned closure moves
-    this boundary. Source: Barnea, Shoham & Taitel (1982), also Barnea (1987) (form from memory;
-    f_L taken as Fanning). Limits: u_L,A -> 0 as theta -> -90 deg (a vertical stratified layer is
-    a falling film); applied only for theta < 0. Shapes ``(*batch)``.
+    surface by the liquid's turbulence cross the gas space, D - h_L, and wet the upper wall, and a
+    film forms around the circumference. Annular when the stratified layer's u_L >= u_L,A. f_L is
+    the closure's Fanning liquid wall factor at its stratified equilibrium (BST82 and B87 used
+    Taitel & Dukler's 0.046 Re^-0.2), so a learned closure moves this boundary. Source: Barnea,
+    Shoham & Taitel (1982), as used by Barnea (1987) (from memory; the form, gas-space height
+    1 - h_L/D and Fanning f_L, agrees with an independent open implementation of B87 read when
+    this was written; earlier versions had the buoyancy factor 1 - rho_G/rho_L in place of
+    1 - h_L/D). Limits: u_L,A -> 0 as theta -> -90 deg (a vertical stratified layer is a falling
+    film) and as h_L -> D. Applied only for theta < 0. Shapes ``(*batch)``.
 
     >>> from closure_nn.physics.conditions import make_conditions
     >>> from closure_nn.physics.local_state import local_state
     >>> c = make_conditions(vsl=0.1, vsg=1.0, D=0.05, theta=-math.pi / 3)
     >>> s = local_state(c, torch.tensor(0.1, dtype=torch.float64), 'stratified')
     >>> round(float(bst_annular_liquid_velocity(c, s, torch.tensor(0.01, dtype=torch.float64))), 3)
-    4.948
+    4.697
     """
     cos = torch.cos(cond.theta).clamp_min(0.0)
-    buoy = (1 - cond.rhog / cond.rhol).clamp_min(0.0)
-    return torch.sqrt(cond.g * cond.D * buoy * cos / f_wl.clamp_min(_TINY))
+    gas_space = (1 - s.geom.frac).clamp_min(0.0)
+    return torch.sqrt(cond.g * cond.D * gas_space * cos / f_wl.clamp_min(_TINY))
 
+
+def bst_wavy_froude(cond: Conditions, s: LocalState) -> torch.Tensor:
+    r"""Froude number of a downward stratified layer, Fr = u_L / (g h_L)^(1/2) [-] (BST82).
+
+    .. math:: Fr = \frac{u_L}{\sqrt{g\,h_L}} \ge 1.5 \;\Rightarrow\; \text{stratified wavy}
+
+    In downward pipes gravity, not wind, makes the waves: roll waves form on a fast thin layer
+    once its Froude number exceeds about 1.5 (:data:`FROUDE_WAVY`). Source: Barnea, Shoham &
+    Taitel (1982), used for theta < 0 by Barnea (1987) (from memory; the same form and 1.5 in an
+    independent open implementation of B87). h_L = (h/D) D of the equilibrium. Shapes ``(*batch)``.
+
+    >>> from closure_nn.physics.conditions import make_conditions
+    >>> from closure_nn.physics.local_state import local_state
+    >>> c = make_conditions(vsl=0.05, vsg=1.0, D=0.05, theta=-0.1)
+    >>> s = local_state(c, torch.tensor(0.5, dtype=torch.float64), 'stratified')  # u_L 0.1 m/s
+    >>> round(float(bst_wavy_froude(c, s)), 4)  # 0.1 / (9.80665 * 0.025) ** 0.5
+    0.202
+    """
+    h_l = (s.geom.frac * cond.D).clamp_min(_TINY)
+    return s.u_L.abs() / torch.sqrt(cond.g * h_l)
