@@ -2,11 +2,11 @@
 
 The truth is the invented power law of tests/test_distill.py (f_i = 3 (h/D)^0.4 Fr_G^0.3 times
 the Andritsos & Hanratty 1987 interface, f_WL = 0.8 Re_L^0.03 times Churchill 1977; not fitted to
-any experiment). The loop envelope is invented here. The learner in these tests is a stand-in
-for the fine-tune stage that keeps the test small: a NeuralClosure fitted by least squares to
-the truth's ln(f / f_base), with noise, at states around the truth's equilibria of the measured
-conditions (what a measured holdup gives); its scaler and training domain span the whole
-envelope (as a pre-training there would), its measured-data domain the measured rows only.
+any experiment). The loop envelope is invented here. The main test runs the training stages of
+`closure-nn fit` at a test budget. The other tests use a cheaper ensemble: NeuralClosures fitted
+by least squares to the truth's ln(f / f_base), with noise, at states around the truth's
+equilibria of the measured conditions (what a measured holdup gives); their scaler and training
+domain span the whole envelope, their measured-data domain the measured rows only.
 """
 from __future__ import annotations
 
@@ -18,8 +18,11 @@ import torch
 from closure_nn.cli import main
 from closure_nn.closures.ensemble import ClosureEnsemble, save_ensemble
 from closure_nn.closures.neural import NeuralClosure
-from closure_nn.data.synthetic import lhs_unit, sample_design
+from closure_nn.config import load_config
+from closure_nn.data.closure_table import noisy_table
+from closure_nn.data.synthetic import lhs_unit, sample_design, solve_table
 from closure_nn.pipeline.plan import PlanSettings, choose_batch, envelope_design, plan
+from closure_nn.pipeline.stages import finetune, pretrain, synthesize_design
 from closure_nn.training.scoring import predict_table, score_table
 
 from test_distill import PowerLawTruth, _feature_targets
@@ -81,23 +84,43 @@ def campaign():
     return {"truth": truth, "space": space, "scaler": scaler, "measured": measured, "ens": ens, "ood": ood}
 
 
-def test_planned_points_teach_more_out_of_domain_than_random_points(campaign):
-    """Seeded: the measured rows plus the N_PLAN planned points give an out-of-domain holdup MAE
-    (against the truth, rows of the envelope outside the measured corner) at least 20 % below that
-    of the measured rows plus N_PLAN random envelope points (mean over three random draws)."""
+#: a test-sized budget of the fit stages (the defaults are the method; only sizes change)
+BUDGET = ["fit.synth.n=1000", "stage_trainer.pretrain.max_epochs=6", "stage_trainer.finetune.max_epochs=30",
+          "stage_trainer.finetune.patience=8"]
+
+
+def _labelled(rows: pd.DataFrame, truth, seed: int) -> pd.DataFrame:
+    """The truth's holdup, pgrad and pattern at ``rows`` with the noise of closure_nn.data.closure_table
+    (holdup sd 0.01, pgrad 2.5 %)."""
+    t, _ = solve_table(rows, truth, progress=False)
+    rng = np.random.default_rng(seed)
+    return rows.assign(holdup=np.clip(t["holdup"].to_numpy() + rng.normal(0, 0.01, len(rows)), 0, 1),
+                       pgrad=t["pgrad"].to_numpy() * (1 + rng.normal(0, 0.025, len(rows))), pattern=t["pattern"].to_numpy())
+
+
+def test_planned_points_teach_the_fit_stages_more_than_random_points(campaign, tmp_path):
+    """The stages of `closure-nn fit` at a test budget: pre-train over the envelope, fine-tune a
+    3-member bootstrap ensemble on 150 noisy rows of the measured corner, plan N_PLAN points with it;
+    then fine-tune from the same pre-trained closure on measured + planned rows and on measured +
+    N_PLAN random envelope points (two seeded draws). Seeded: the planned rows' out-of-domain holdup
+    MAE (against the truth, envelope rows outside the corner) is at least 10 % below the mean of the
+    random draws'. (Measured when written: 0.0049 vs 0.0050 and 0.0075, a 22 % margin; the
+    baseline's 0.0093. scripts/plan_study.py repeats the comparison for other seeds.)"""
     truth, space, ood = campaign["truth"], campaign["space"], campaign["ood"]
-    chosen, cand, summary = plan(campaign["ens"], space, PlanSettings(n=N_PLAN, candidates=400, seed=1))
-    assert len(chosen) == N_PLAN and summary["separation_used"] > 0
+    cfg = load_config("fit", [*BUDGET, f"run_root={tmp_path}"])
+    pre = pretrain(cfg, synthesize_design(cfg, space, 1000, 0).table, tmp_path / "pre")
+    measured = noisy_table(envelope_design(MEASURED), 150, 1, truth).drop(columns=["holdup_true", "pgrad_true"])
+    ens = finetune(cfg, pre.closure, measured, tmp_path / "ens", **{"ensemble.members": 3, "ensemble.bootstrap": True}).trained
+    chosen, _, _ = plan(ens, space, PlanSettings(n=N_PLAN, candidates=1000, seed=1))
+    inputs = [c for c in chosen.columns if c in measured.columns and c not in ("holdup", "pgrad", "pattern")]
 
-    def ood_mae(extra: pd.DataFrame) -> float:
-        rows = pd.concat([campaign["measured"], extra[campaign["measured"].columns]], ignore_index=True)
-        net = _learner(truth, rows, campaign["scaler"], seed=7)
-        return score_table(predict_table(net, ood), ood)["holdup_mae"]
+    def ood_mae(extra: pd.DataFrame, tag: str) -> float:
+        rows = pd.concat([measured, _labelled(extra[inputs], truth, 5)], ignore_index=True)
+        return score_table(predict_table(finetune(cfg, pre.closure, rows, tmp_path / tag).trained, ood), ood)["holdup_mae"]
 
-    planned = ood_mae(chosen)
-    randoms = [ood_mae(space.sample_unit(lhs_unit(N_PLAN, len(space.dimensions), 50 + k))) for k in range(3)]
-    print("OOD", planned, randoms)
-    assert planned <= 0.8 * float(np.mean(randoms)), (planned, randoms)
+    planned = ood_mae(chosen, "planned")
+    randoms = [ood_mae(space.sample_unit(lhs_unit(N_PLAN, len(space.dimensions), 50 + k)), f"random{k}") for k in range(2)]
+    assert planned <= 0.9 * float(np.mean(randoms)), (planned, randoms)
 
 
 def test_the_batch_is_diverse_and_ranked_by_score(campaign):

@@ -57,6 +57,11 @@ def _range(spec: Mapping, key: str, where: str) -> list[float]:
     return [float(v[0]), float(v[1])]
 
 
+def _law(lo: float, hi: float, unit: str) -> dict:
+    """Uniform on [lo, hi], or fixed where the range is one value."""
+    return {"law": "uniform", "low": lo, "high": hi, "unit": unit} if hi > lo else {"law": "fixed", "value": lo, "unit": unit}
+
+
 def envelope_design(spec: Mapping, where: str = "envelope") -> DesignSpace:
     """A loop envelope (see :func:`read_envelope`) as a design space: v_SL, v_SG log-uniform,
     inclination and pressure uniform, the diameters and liquids a choice."""
@@ -77,13 +82,12 @@ def envelope_design(spec: Mapping, where: str = "envelope") -> DesignSpace:
     d = spec["D_mm"]
     if not (isinstance(d, list) and d and all(isinstance(x, (int, float)) for x in d)):
         raise InputError(f"{where}: D_mm = {d!r}: expected a list of the test-section diameters in mm")
-    law = lambda lo, hi, **u: {"law": "uniform", "low": lo, "high": hi, **u} if hi > lo else {"law": "fixed", "value": lo, **u}  # noqa: E731
     design = {"name": str(spec.get("name", "loop")), "description": str(spec.get("description", "")),
               "variables": {"vsl": {"law": "log_uniform", "low": lo_l, "high": hi_l},
                             "vsg": {"law": "log_uniform", "low": lo_g, "high": hi_g},
                             "D": {"law": "choice", "values": [float(x) for x in d], "unit": "mm"},
-                            "theta": law(*_range(spec, "theta_deg", where), unit="deg"),
-                            "p": law(*_range(spec, "p_bara", where), unit="bara"),
+                            "theta": _law(*_range(spec, "theta_deg", where), "deg"),
+                            "p": _law(*_range(spec, "p_bara", where), "bara"),
                             "T": {"law": "fixed", "value": float(spec.get("T_degC", 20.0)), "unit": "degC"},
                             "roughness": {"law": "fixed", "value": float(spec.get("roughness_um", 0.0)), "unit": "um"},
                             "M_g": {"law": "fixed", "value": float(gas.get("M_g", 28.96)), "unit": "g/mol"},

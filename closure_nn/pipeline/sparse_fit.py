@@ -107,7 +107,8 @@ def sparse_fit(X: np.ndarray, y: np.ndarray, names: list[str] | tuple[str, ...],
     def score(rss: float, k: int) -> float:
         return n * math.log(max(rss / n, sd_floor ** 2)) + kappa * k
 
-    best = SparseFit({}, float((y ** 2).sum()), n, score(float((y ** 2).sum()), 0), 1.0 - float((y ** 2).sum()) / tss if tss > 0 else 1.0)
+    rss0 = float((y ** 2).sum())  # the empty model: no correction
+    best = SparseFit({}, rss0, n, score(rss0, 0), 1.0 - rss0 / tss if tss > 0 else 1.0)
     for cols in sorted(supports, key=len):
         c0, b = _lstsq(X, y, list(cols))
         resid = y - c0 - (X[:, list(cols)] @ b if cols else 0.0)
