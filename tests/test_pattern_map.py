@@ -49,6 +49,30 @@ def test_map_command_writes_a_run_folder(tmp_path):
     assert s["theta_deg"] == 2.0 and "CAUTION" in s["caution"]
 
 
+def test_map_command_bands_scores_every_row_per_inclination_band(tmp_path):
+    # INVENTED observations: the baseline's own patterns over -90..+90 deg (noisy_table, no
+    # observer errors), so the baseline reproduces all of them; the figure and the scores per
+    # band land in the run folder.
+    from closure_nn.data.closure_table import noisy_table
+    from closure_nn.data.design_space import parse_design
+    from closure_nn.report.pattern_bands import BANDS
+
+    design = parse_design({"name": "bands", "variables": {
+        "vsl": {"law": "log_uniform", "low": 0.003, "high": 5.0}, "vsg": {"law": "log_uniform", "low": 0.1, "high": 40.0},
+        "D": {"law": "choice", "values": [25.0, 51.0], "unit": "mm"},
+        "theta": {"law": "uniform", "low": -90.0, "high": 90.0, "unit": "deg"}, "roughness": 0.0,
+        "rhol": 998.0, "rhog": 1.2, "mul": 1.0e-3, "mug": 1.8e-5, "sigma": 0.072}})
+    table = noisy_table(design, 60, 5, BaselineClosure(), label_flip=0.0)
+    table.to_csv(tmp_path / "obs.csv", index=False)
+    assert main(["map", "--data", str(tmp_path / "obs.csv"), "--bands", "n=16", "--out", str(tmp_path / "m")]) == 0
+    (run,) = (tmp_path / "m").iterdir()
+    assert (run / "pattern_bands.png").stat().st_size > 20_000
+    scores = json.loads((run / "summary.json").read_text())["band_scores"]
+    assert [tuple(s["band"]) for s in scores] == list(BANDS)
+    assert sum(s["n"] for s in scores) == 60 and all(s["correct"] == s["n"] for s in scores)
+    assert main(["map", "--bands", "n=6", "--out", str(tmp_path / "x")]) != 0  # --bands needs --data
+
+
 def test_audit_command_self_check(tmp_path):
     rc = main(["audit", "--self-check", "--out", str(tmp_path), "grid.n_sweep=41", "grid.n_map=12",
                "grid.D=[0.05]", "grid.theta_deg=[0.0]", "closure.wall=churchill", "+closure.interface_kwargs.coef=25.0"])

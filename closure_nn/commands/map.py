@@ -3,7 +3,10 @@
 observed pattern.
 
 Writes ``pattern_map.png``, ``pattern_map.csv`` (grid codes as names), ``summary.json`` and the
-resolved config into a run folder.
+resolved config into a run folder. With ``--bands`` (needs ``--data``) also ``pattern_bands.png``:
+every row of the table, one panel per inclination band, each observation solved at its own
+conditions by the drawn closure, with its score per band (``band_scores`` in summary.json;
+closure_nn.report.pattern_bands).
 """
 from __future__ import annotations
 
@@ -19,6 +22,9 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--data", default=None, help="measurement table to overlay (.csv or .parquet)")
     add_closure_option(p, help="the closure whose region boundaries are drawn dashed over the baseline's filled "
                                "regions: " + CLOSURE_HELP + " (default: the baseline alone)")
+    p.add_argument("--bands", action="store_true",
+                   help="with --data: also pattern_bands.png, one panel per inclination band with every row of the "
+                        "table and the closure's score per band (the --closure one if given, else the baseline)")
     p.add_argument("--learned", default=None, help=argparse.SUPPRESS)  # old spelling of --closure
     add_out_option(p)
 
@@ -52,7 +58,11 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     other_closure = None if spec in (None, "baseline") else load(spec)
     base = compute_pattern_map(base_closure, **kw)
     other = compute_pattern_map(other_closure, **kw) if other_closure is not None else None
-    data, note = None, ""
+    if args.bands and not args.data:
+        from ..physics.checks import InputError
+
+        raise InputError("map --bands scores observations per inclination band: give the table with --data FILE")
+    data, note, df = None, "", None
     if args.data:
         from ..data.table_io import read_table
         from ..data.validate import validate_table
@@ -75,6 +85,8 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     summary = {"closure": base.label, "learned": other.label if other else None, **{k: v for k, v in kw.items() if k != "solver"},
                "share_disagreeing": disagreement(base, other) if other else None,
                "data_points": 0 if data is None else len(data), "caution": CAUTION}
+    if args.bands:
+        summary["band_scores"] = _bands(other_closure or base_closure, df, run_dir, kw, args.data)
     write_json(run_dir / "summary.json", summary)
     print(f"pattern map of {base.label}: {png}")
     if other is not None:
@@ -85,6 +97,20 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     if old:  # once the run worked: a failure stays one line
         deprecated(old, f"--closure {spec}")
     return 0
+
+
+def _bands(closure, df, run_dir, kw: dict, source: str) -> list[dict]:
+    """Band figure and scores of every row of ``df`` (closure_nn.report.pattern_bands)."""
+    from ..report.pattern_bands import band_accuracy, plot_pattern_bands
+
+    fluids = {k: v for k, v in kw["fluids"].items() if k not in df}
+    data = df.assign(**fluids) if fluids else df
+    scores = band_accuracy(closure, data, solver=kw["solver"])
+    plot_pattern_bands(closure, data, run_dir / "pattern_bands.png", fluids=kw["fluids"], solver=kw["solver"],
+                       data_note=f"Points: every valid row of {source}.")
+    for s in scores:
+        print(f"  {s['band'][0]:+g} to {s['band'][1]:+g} deg: {s['correct']} of {s['n']} observed patterns reproduced")
+    return [{**s, "band": list(s["band"]), "accuracy": s["accuracy"] if s["n"] else None} for s in scores]
 
 
 def _number(value, key: str) -> float:
