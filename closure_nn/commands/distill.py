@@ -39,7 +39,7 @@ def _fit_context(bundle: Path, table: str | None, cfg) -> tuple:
 
     from ..data.synthetic import sample_design
     from ..pipeline.envelope import envelope_design
-    from ..pipeline.fit import validate_lab
+    from ..pipeline.lab_table import validate_lab
     from ..training.tables import split_table
 
     run = bundle.resolve().parent

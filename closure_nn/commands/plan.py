@@ -66,7 +66,7 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     ens = load_saved_closure(args.ensemble)
     data = None
     if args.data:
-        from ..pipeline.fit import validate_lab
+        from ..pipeline.lab_table import validate_lab
 
         data = validate_lab(args.data).rows
     c = OmegaConf.to_container(cfg, resolve=True)
