@@ -27,8 +27,8 @@ def plan_map(chosen: pd.DataFrame, candidates: pd.DataFrame, data: pd.DataFrame 
         sc = ax.scatter(jit(candidates[x].to_numpy()), conv(y, candidates[y].to_numpy()), c=candidates["score"],
                         cmap="Greens", s=6, alpha=0.6, label="candidates (shade: score)")
         if data is not None and len(data):
-            ax.scatter(jit(data[x].to_numpy()), conv(y, data[y].to_numpy()), s=5, c="0.45", marker=".",
-                       label=f"existing rows ({len(data)})")
+            ax.scatter(jit(data[x].to_numpy()), conv(y, data[y].to_numpy()), s=14, c="0.15", marker="x",
+                       linewidths=0.7, label=f"existing rows ({len(data)})")
         cx, cy = jit(chosen[x].to_numpy()), conv(y, chosen[y].to_numpy())
         ax.scatter(cx, cy, s=70, facecolors="none", edgecolors="crimson", linewidths=1.6,
                    label=f"chosen ({len(chosen)})")
@@ -43,6 +43,7 @@ def plan_map(chosen: pd.DataFrame, candidates: pd.DataFrame, data: pd.DataFrame 
     axes[0].legend(loc="lower left", fontsize=8)
     fig.colorbar(sc, ax=axes[1], label="score")
     fig.suptitle(title, fontsize=10)
+    fig.subplots_adjust(bottom=0.15)
     fig.text(0.01, 0.01, "Score = disagreement of the ensemble + distance from the measured data + closeness to a "
              "pattern boundary (weights in plan.json). Results are estimates, not a design basis.", fontsize=7)
     out = Path(path)
