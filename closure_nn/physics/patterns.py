@@ -30,10 +30,12 @@ criterion is applied only inside the inclinations its source covers:
 
 1. vsg <= 0 -> ``single_phase_liquid`` (also when both rates are zero); vsl <= 0 < vsg ->
    ``single_phase_gas``.
-2. **Dispersed bubble**, every inclination: Barnea (1986) (bubbles that turbulence keeps smaller
-   than both the deforming size and the size that migrates to the upper wall, no-slip void
-   < 0.52); near horizontal also TD76's turbulence criterion on a Kelvin-Helmholtz-unstable layer
-   (step 4).
+2. **Dispersed bubble**: Barnea (1986) (bubbles that turbulence keeps smaller than both the
+   deforming size and the size that migrates to the upper wall, no-slip void < 0.52) at every
+   inclination outside the TD76 band of step 4, where TD76's turbulence criterion on a
+   Kelvin-Helmholtz-unstable layer decides instead (it moves with the closure's f_wl; B86 there
+   lowered the agreement with the horizontal maps of TD76 and of Mandhane et al. 1974 by about
+   one point on the states of benchmarks/bench_pattern_map.py).
 3. **Stratified**, theta < ``theta_steep`` (20 deg; stratified upflow exists only at small upward
    angles, Barnea et al. 1985 and B87, from memory: above it the closure's thinnest layer is not
    asked, and with the Andritsos-Hanratty interface it would call thin layers under 15-25 m/s of
@@ -363,7 +365,7 @@ def classify(
         thrown = layer & stable & thrown
         stable = layer & stable & ~thrown
         near = layer & ~thrown & (cond.theta >= theta_down)
-        dispersed = barnea_dispersed(cond)  # step 2 (closed form, every row)
+        dispersed = barnea_dispersed(cond) & ~near  # step 2 (closed form; TD76's own near horizontal)
         unified = ~steep_up & ~near & ~stable & ~dispersed  # step 5; the film equation costs a solve
         film_ok = _on_rows(barnea_annular_ok, cond, unified)
         code = torch.where(_bubble_rows(cond, theta_bubble), CODE[BUBBLE], CODE[INTERMITTENT])
