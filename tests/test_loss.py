@@ -309,3 +309,23 @@ def test_clear_rule_leaves_out_rows_of_unknown_pattern_near_a_transition():
     clear_net = clear_configuration_codes(c, net)
     assert int((clear_net >= 0).sum()) > 0
     assert counts["data_pgrad"] + counts["no_root"] == int((clear_net >= 0).sum())
+
+
+def test_pattern_term_leaves_layers_that_throw_drops_to_the_map(monkeypatch):
+    """Downward pipes: a Kelvin-Helmholtz-stable layer fast enough to throw drops onto the upper
+    wall is not stratified (Barnea, Shoham & Taitel 1982), so a non-stratified label there says
+    nothing of the KH margin and the hinge leaves the row alone; a stratified label still counts.
+    The drop-throw velocity is set to zero here (every downward layer throws), to test the rule."""
+    import closure_nn.training.loss as loss_module
+
+    base = BaselineClosure()
+    df = make_table(base, 6, seed=5).assign(holdup=np.nan, pgrad=np.nan, theta=-0.05)
+    net = fitted_model(df)
+    w = {k: 0.0 for k in TERMS} | {"pattern": 1.0}
+    loss = ClosureLoss(LossSettings(weights=w, pattern_rows="observed"))
+    _, _, before = loss(net, table_tensors(df.assign(pattern="intermittent")))
+    assert before["pattern"] == len(df)
+    monkeypatch.setattr(loss_module, "bst_annular_liquid_velocity", lambda c, s, f: torch.zeros_like(s.u_L))
+    _, _, thrown = loss(net, table_tensors(df.assign(pattern="intermittent")))
+    _, _, strat = loss(net, table_tensors(df.assign(pattern="stratified_wavy")))
+    assert thrown["pattern"] == 0 and strat["pattern"] == len(df)

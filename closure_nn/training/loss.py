@@ -30,6 +30,7 @@ from ..physics.local_state import LocalState, local_state
 from ..physics.momentum import FrictionFactors, shear_stresses
 from ..physics.near_root import solve_separated_near
 from ..physics.patterns import THETA_DOWN, THETA_STEEP, kh_gas_velocity
+from ..physics.transitions_unified import bst_annular_liquid_velocity
 from ..physics.vocabulary import ANNULAR, CODE, CONFIG_STRATIFIED, DISPERSED_BUBBLE, INTERMITTENT, STRATIFIED_PATTERNS
 from .loss_batch import batch_conditions, batch_kinds, measured_state_rows, uncertainties
 from .loss_terms import (combined_residual_term, data_misfit_term, holdup_sensitivity, pattern_term,
@@ -281,5 +282,11 @@ class ClosureLoss(nn.Module):
         ok = sol.found
         m = sol.state.u_G / kh_gas_velocity(c, sol.state).clamp_min(1e-12) - 1
         pen = pattern_term(m, strat[rows], self.settings.pattern_margin, self.settings.pattern_tolerance)
-        acc.add("pattern", pen[ok], batch["weight"][rows][ok])
+        # in a downward pipe a Kelvin-Helmholtz-stable layer fast enough to throw drops onto the upper
+        # wall is not stratified either (Barnea, Shoham & Taitel 1982; physics.patterns, step 3): a
+        # non-stratified label there says nothing of the KH margin, so the hinge leaves it alone
+        with torch.no_grad():
+            thrown = (c.theta < 0) & (sol.state.u_L >= bst_annular_liquid_velocity(c, sol.state, sol.friction.f_wl))
+        use = ok & ~(thrown & ~strat[rows])
+        acc.add("pattern", pen[use], batch["weight"][rows][use])
         return int((~ok).sum())
