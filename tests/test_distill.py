@@ -218,6 +218,10 @@ def test_formula_file_round_trip_and_every_loader_reads_it(tmp_path):
     (tmp_path / "other.json").write_text('{"format": "something else"}')
     with pytest.raises(ValueError, match="closure-nn-formula"):
         load_formula(tmp_path / "other.json")
+    # every command's --closure takes the file (commands/options.closure_path)
+    from closure_nn.cli import main
+
+    assert main(["point", "--vsl", "0.05", "--vsg", "2", "--D", "0.08", "--closure", str(path), "--json"]) == 0
 
 
 def test_formula_closure_is_differentiable_in_the_state():

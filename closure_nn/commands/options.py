@@ -18,6 +18,7 @@ import argparse
 import sys
 from pathlib import Path
 
+from ..closures.formula import is_formula_file
 from ..closures.registry import build_closure, closure_source
 from ..physics.checks import InputError
 
@@ -27,7 +28,7 @@ BASELINE = "baseline"
 _MARKERS = ("bundle.json", "ensemble.json")
 
 CLOSURE_HELP = ("'baseline' (the mechanistic baseline of the config) or PATH: a closure bundle, an ensemble "
-                "folder or a training run folder (its bundle/ is used)")
+                "folder, a training run folder (its bundle/ is used) or a distilled formula (distilled.json)")
 OUT_HELP = "parent folder of the new run folder (default: run_root of the config, ./runs)"
 
 
@@ -62,8 +63,11 @@ def closure_path(spec: str | Path) -> Path:
         return p / "bundle"
     if p.is_file() and p.name in _MARKERS:
         return p.parent
+    if is_formula_file(p):
+        return p
     raise InputError(f"{p}: not a closure; expected a bundle folder (bundle.json), an ensemble folder "
-                     "(ensemble.json) or a training run folder with bundle/ inside")
+                     "(ensemble.json), a training run folder with bundle/ inside or a distilled formula "
+                     "file (closure-nn distill)")
 
 
 def load(spec: str | Path):
