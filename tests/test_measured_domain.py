@@ -178,7 +178,7 @@ def line_dir(tmp_path):
 
 
 def test_line_summary_table_plot_and_demo_table_carry_the_measured_count(line_dir):
-    from closure_nn.commands.demo import _summary
+    from closure_nn.pipeline.demo import _summary
     from closure_nn.line.definition import load_line
     from closure_nn.line.march import MarchSettings
     from closure_nn.line.run import run_line, write_line_run

@@ -23,6 +23,7 @@ from closure_nn.physics.conditions import FIELD_NAMES, make_conditions
 from closure_nn.physics.holdup_roots import find_roots, solve_separated
 from closure_nn.physics.local_state import local_state
 from closure_nn.physics.momentum import combined_residual, shear_stresses
+from closure_nn.physics.vocabulary import CODE, STRATIFIED_SMOOTH, STRATIFIED_WAVY
 from closure_nn.physics.point import FLAG_MULTIPLE_ROOTS, FLAG_ROOT_PAIR_UNRESOLVED, solve_points
 
 DATA = Path(__file__).parent / "data"
@@ -110,7 +111,14 @@ def test_results_equal_the_earlier_solver_where_its_root_count_was_right(name):
     np.testing.assert_allclose(sol.roots.numpy()[same], roots[same], atol=1e-10, rtol=0, equal_nan=True)
     np.testing.assert_allclose(sol.holdup.numpy()[same], snap.holdup.to_numpy()[same], atol=1e-10, rtol=0)
     assert rel(sol.pgrad.total.numpy()[same], snap.pgrad.to_numpy()[same]).max() < 1e-9
-    np.testing.assert_array_equal(pts.pattern.numpy()[same], snap.point_pattern.to_numpy()[same])
+    # The map changed by design after the snapshot: in downward pipes a stratified layer is wavy
+    # by the Froude criterion of Barnea, Shoham & Taitel (1982); smooth -> wavy there is expected,
+    # every other pattern must be the snapshot's.
+    got, want = pts.pattern.numpy(), snap.point_pattern.to_numpy()
+    by_design = ((want == CODE[STRATIFIED_SMOOTH]) & (got == CODE[STRATIFIED_WAVY])
+                 & (snap.theta.to_numpy() < 0))
+    assert by_design.sum() <= 0.2 * len(snap)
+    np.testing.assert_array_equal(got[same & ~by_design], want[same & ~by_design])
     np.testing.assert_allclose(pts.holdup.numpy()[same], snap.point_holdup.to_numpy()[same], atol=1e-10, rtol=0)
     assert rel(pts.pgrad.total.numpy()[same], snap.point_pgrad.to_numpy()[same]).max() < 1e-9
     np.testing.assert_array_equal(pts.flags.numpy()[same] & ~FLAG_ROOT_PAIR_UNRESOLVED,
