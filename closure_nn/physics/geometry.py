@@ -31,9 +31,12 @@ from functools import cached_property
 import torch
 
 from .implicit import attach_implicit_grad
+from .vocabulary import CONFIG_ANNULAR, CONFIG_STRATIFIED
 
-STRATIFIED = "stratified"
-ANNULAR = "annular"
+#: the separated configurations (the one vocabulary in physics/vocabulary.py; the short names are
+#: this module's, as the configuration ``kind`` of a geometry)
+STRATIFIED = CONFIG_STRATIFIED
+ANNULAR = CONFIG_ANNULAR
 #: upper bound of ``frac`` for each configuration (h/D < 1, delta/D < 1/2)
 FRAC_MAX = {STRATIFIED: 1.0, ANNULAR: 0.5}
 
