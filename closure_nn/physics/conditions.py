@@ -90,6 +90,28 @@ class Conditions:
         return {f.name: getattr(self, f.name) for f in fields(self)}
 
 
+def broadcast_shape(*shapes) -> torch.Size:
+    """The broadcast shape of ``shapes`` by numpy's broadcasting rule (trailing dimensions align;
+    a size-1 dimension stretches), as ``torch.broadcast_shapes`` gives it.
+
+    Ours because ``torch.broadcast_shapes`` costs about 0.1 ms a call in torch 2.13 (it runs the
+    symbolic-shape reference implementation), and the root finder calls it on every residual
+    evaluation (benchmarks/README.md, issue 17).
+
+    >>> tuple(broadcast_shape((4, 1), (1, 40), (4, 1))), tuple(broadcast_shape((), (3,)))
+    ((4, 40), (3,))
+    """
+    ndim = max([len(s) for s in shapes] + [0])
+    out = [1] * ndim
+    for s in shapes:
+        for i, d in enumerate(s, ndim - len(s)):
+            if d != 1 and out[i] != d:
+                if out[i] != 1:
+                    raise ValueError(f"shapes {[tuple(x) for x in shapes]} do not broadcast")
+                out[i] = d
+    return torch.Size(out)
+
+
 def make_conditions(
     vsl,
     vsg,
@@ -114,7 +136,7 @@ def make_conditions(
     ((2,), 998.0)
     """
     vals = [_as_tensor(v) for v in (vsl, vsg, D, theta, roughness, rhol, rhog, mul, mug, sigma, g)]
-    shape = torch.broadcast_shapes(*(v.shape for v in vals))
+    shape = broadcast_shape(*(v.shape for v in vals))
     vals = [v.expand(shape).contiguous() for v in vals]
     return Conditions(*vals)
 

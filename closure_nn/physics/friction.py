@@ -5,12 +5,15 @@ tensors and are smooth or continuous in Re, so a holdup root finder sees a conti
 """
 from __future__ import annotations
 
+import math
+
 import torch
 
 #: Taitel & Dukler (1976) Blasius-type constants: f = C Re^-n
 TD_TURBULENT_C, TD_TURBULENT_N = 0.046, 0.2
 TD_LAMINAR_C, TD_LAMINAR_N = 16.0, 1.0
 _RE_FLOOR = 1e-8
+_LN7, _LN8, _LN37530 = math.log(7.0), math.log(8.0), math.log(37530.0)  # Churchill's constants, as logs
 
 
 def fanning_laminar(Re: torch.Tensor) -> torch.Tensor:
@@ -48,13 +51,13 @@ def fanning_churchill(Re: torch.Tensor, eD: torch.Tensor | float = 0.0) -> torch
     >>> round(float(4 * fanning_churchill(torch.tensor(1e5, dtype=torch.float64), 1e-4)), 5)
     0.01846
     """
-    Re = Re.clamp_min(_RE_FLOOR)
-    eD = torch.as_tensor(eD, dtype=Re.dtype)
-    inner = (7.0 / Re).pow(0.9) + 0.27 * eD
+    ln_re = torch.log(Re.clamp_min(_RE_FLOOR))  # ln(c/Re) = ln c - ln Re: one log for the three powers of Re
+    eD = torch.as_tensor(eD, dtype=ln_re.dtype)
+    inner = torch.exp(0.9 * (_LN7 - ln_re)) + 0.27 * eD  # (7/Re)^0.9 + 0.27 eD
     # below Re ~ 10 the log turns negative: A -> 0 there, where (8/Re)^12 dominates anyway
-    logA = 16 * torch.log((2.457 * torch.log(1.0 / inner)).clamp_min(1e-300))
-    logB = 16 * torch.log(37530.0 / Re)
+    logA = 16 * torch.log((-2.457 * torch.log(inner)).clamp_min(1e-300))
+    logB = 16 * (_LN37530 - ln_re)
     log_ab = torch.logaddexp(logA, logB)
     # (8/Re)^12 + (A+B)^-1.5 in log space
-    log_sum = torch.logaddexp(12 * torch.log(8.0 / Re), -1.5 * log_ab)
+    log_sum = torch.logaddexp(12 * (_LN8 - ln_re), -1.5 * log_ab)
     return 2.0 * torch.exp(log_sum / 12)  # 8 * [...]^(1/12) / 4

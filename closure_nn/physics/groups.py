@@ -31,7 +31,7 @@ from __future__ import annotations
 
 import torch
 
-from .conditions import Conditions
+from .conditions import Conditions, broadcast_shape
 from .friction import fanning_blasius_td
 from .geometry import ANNULAR
 from .local_state import LocalState
@@ -67,7 +67,7 @@ def closure_features(s: LocalState) -> torch.Tensor:
     ]
     shapes = {x.shape for x in cols}
     if len(shapes) > 1:  # a field given as a scalar or a smaller shape
-        shape = torch.broadcast_shapes(*shapes)
+        shape = broadcast_shape(*shapes)
         cols = [torch.broadcast_to(x, shape) for x in cols]
     return torch.stack(cols, dim=-1)
 

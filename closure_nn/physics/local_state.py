@@ -22,7 +22,7 @@ from functools import cached_property
 
 import torch
 
-from .conditions import Conditions
+from .conditions import Conditions, broadcast_shape
 from .geometry import ANNULAR, SeparatedGeometry, separated
 
 _TINY = 1e-300
@@ -73,12 +73,12 @@ def local_state(cond: Conditions, frac: torch.Tensor, kind: str, entrainment: to
     E = torch.as_tensor(entrainment, dtype=torch.float64) * (1.0 if kind == ANNULAR else 0.0)
     # terms that do not depend on frac are computed on the conditions' shape, once per state,
     # and broadcast (expanded views) to the shape of the trial levels
-    shape = torch.broadcast_shapes(frac.shape, cond.vsl.shape, E.shape)
+    shape = broadcast_shape(frac.shape, cond.vsl.shape, E.shape)
     q_e = E * cond.vsl  # entrained liquid flux, m/s superficial
     core_flux = cond.vsg + q_e
     rho_core = (cond.rhog * cond.vsg + cond.rhol * q_e) / core_flux.clamp_min(_TINY)
     rho_core = torch.where(core_flux > 0, rho_core, cond.rhog * torch.ones_like(rho_core))
     u_L = (cond.vsl - q_e) * A / geom.A_L
     u_G = core_flux * A / geom.A_G
-    E = E.expand(torch.broadcast_shapes(E.shape, frac.shape))
+    E = E.expand(broadcast_shape(E.shape, frac.shape))
     return LocalState(cond=cond, geom=geom, entrainment=E, u_L=u_L, u_G=u_G, rho_core=rho_core.expand(shape))
