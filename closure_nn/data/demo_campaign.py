@@ -29,7 +29,10 @@ Steps of :func:`generate`:
    Observed patterns: the reference pattern, but near a boundary (the pattern changes within
    +-15 % of v_SG or v_SL) the neighbouring pattern is written with probability
    :data:`P_CONFUSE`.
-5. Corruptions (:data:`CORRUPTIONS`), each a realistic slip that still passes validation.
+5. Corruptions (:data:`CORRUPTIONS`), each a realistic slip that still passes validation
+   (:mod:`closure_nn.data.demo_corruptions`).
+
+The fluid property fits live in :mod:`closure_nn.data.demo_fluids`.
 """
 from __future__ import annotations
 
@@ -43,8 +46,11 @@ import numpy as np
 import pandas as pd
 import torch
 
+from ..closures.baseline import BaselineClosure
 from ..physics.point import solve_points
 from ..physics.vocabulary import STRATIFIED_PATTERNS
+from .demo_corruptions import corrupt
+from .demo_fluids import M_AIR, air_viscosity, oil_properties, water_density, water_surface_tension, water_viscosity
 from .demo_reference import ReferenceClosure
 from .schema import to_conditions
 from .table_io import convert_headers
@@ -76,13 +82,12 @@ PGRAD_SD_REL, PGRAD_SD_ABS = PGRAD_U_REL / COVERAGE_K, 1.0  # [-] one sigma (2.5
 #: label sets and their shares: which of holdup (H), pgrad (P), pattern (F) a row keeps
 LABEL_SETS = {"HPF": 0.35, "HP": 0.10, "H": 0.15, "P": 0.20, "F": 0.15, "HF": 0.05}
 P_CONFUSE = 0.35
-#: corruption kind -> number of rows
+#: corruption kind -> number of rows (:mod:`closure_nn.data.demo_corruptions`)
 CORRUPTIONS = {"swap_holdup": 2, "swap_pgrad": 2, "pgrad_mbar_as_pa": 3, "theta_sign": 3,
                "holdup_wrong_run": 2, "vsg_ft_per_s": 1}
 #: [Pa/m] floor of |pgrad| in the relative pgrad error of :func:`baseline_vs_truth` (noise-free, so
 #: kept apart from the noise floor PGRAD_SD_ABS; the 2 Pa/m the report has always used)
 REPORT_PGRAD_FLOOR = 2.0
-M_AIR = 28.96  # g/mol, dry air (handbook value, from memory)
 
 HEADERS = ["run_id", "campaign", "source", "D [mm]", "roughness [um]", "theta [deg]", "vsl [m/s]", "vsg [m/s]",
            "p [bara]", "T [degC]", "M_g [g/mol]", "Z", "rhol [kg/m3]", "mul [cP]", "mug [uPa s]", "sigma [mN/m]",
@@ -94,29 +99,6 @@ COMMENTS = [
     "Do not use for engineering. Scenario, columns and the deliberately corrupted rows: data_demo/README.md.",
     "pgrad = -dp/dx (positive when pressure falls along the flow); theta positive upward; p absolute.",
 ]
-
-
-# -- fluid properties (demo fits; water and air from memory of handbook values, oil invented) --
-
-def water_density(T_c: np.ndarray) -> np.ndarray:
-    """Water density [kg/m3], quadratic through 999.1 / 998.2 / 997.0 at 15 / 20 / 25 degC (from memory)."""
-    return 998.2 - 0.21 * (T_c - 20.0) - 0.0042 * (T_c - 20.0) ** 2
-
-
-def water_viscosity(T_c: np.ndarray) -> np.ndarray:
-    """Water viscosity [Pa s], Vogel form 2.414e-5 * 10**(247.8 / (T - 140)) with T in K (from memory)."""
-    return 2.414e-5 * 10.0 ** (247.8 / (T_c + 273.15 - 140.0))
-
-
-def air_viscosity(T_c: np.ndarray) -> np.ndarray:
-    """Air viscosity [Pa s], Sutherland's law, mu0 = 1.716e-5 Pa s at 273.15 K, S = 110.4 K (from memory)."""
-    T = T_c + 273.15
-    return 1.716e-5 * (T / 273.15) ** 1.5 * (273.15 + 110.4) / (T + 110.4)
-
-
-def oil_properties(T_c: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """The invented light oil: density [kg/m3], viscosity [Pa s], surface tension vs air [N/m]."""
-    return 832.0 - 0.65 * (T_c - 20.0), 2.6e-3 * np.exp(-0.025 * (T_c - 20.0)), 0.0280 - 8e-5 * (T_c - 20.0)
 
 
 # -- formatting ---------------------------------------------------------------------------------
@@ -189,7 +171,7 @@ def _sheet_conditions(m: pd.DataFrame, rng: np.random.Generator) -> pd.DataFrame
     oil_rho, oil_mu, oil_sigma = oil_properties(T_c)
     rhol = np.where(water, water_density(T_c), oil_rho)
     mul = np.where(water, water_viscosity(T_c), oil_mu)
-    sigma = np.where(water, 0.0728 - 1.5e-4 * (T_c - 20.0), oil_sigma)
+    sigma = np.where(water, water_surface_tension(T_c), oil_sigma)
     count: dict[tuple[str, str], int] = {}
     run_ids = []
     for f, s in zip(m["fluid"], m["sec"]):
@@ -269,7 +251,7 @@ def generate(seed: int = SEED) -> DemoCampaign:
                          "theta": matrix["theta"].to_numpy(), "vsg": si["vsg"].to_numpy()})
     vals["pattern"] = np.where(has_f, obs, "")
     vals_in = {k: vals[k].to_numpy().copy() for k in ("theta", "vsg")}
-    corr = _corrupt(vals, truth, sheet, rng)
+    corr = corrupt(vals, truth, sheet, rng, CORRUPTIONS, PGRAD_SD_REL, PGRAD_SD_ABS)
     sheet["holdup [-]"] = [fixed(x, 3) for x in vals["holdup"]]
     sheet["holdup_sd [-]"] = [fixed(x, 3) for x in vals["holdup_sd"]]
     sheet["pgrad [Pa/m]"] = [sig(x) for x in vals["pgrad"]]
@@ -281,97 +263,6 @@ def generate(seed: int = SEED) -> DemoCampaign:
     sheet = sheet[HEADERS]
     _to_si(sheet)  # the corrupted sheet must still pass validation
     return DemoCampaign(sheet=sheet, corruptions=corr, truth=truth)
-
-
-def _corrupt(vals: pd.DataFrame, truth: pd.DataFrame, sheet: pd.DataFrame, rng: np.random.Generator) -> pd.DataFrame:
-    """Apply :data:`CORRUPTIONS` to ``vals`` in place; return the list (run_id, kind, description)."""
-    n = len(vals)
-    used = np.zeros(n, dtype=bool)
-    run_id = sheet["run_id"].to_numpy()
-    series = (sheet["campaign"] + sheet["D [mm]"] + sheet["theta [deg]"]).to_numpy()
-    H, P = vals["holdup"].to_numpy(), vals["pgrad"].to_numpy()
-    out: list[dict] = []
-
-    def pick(mask: np.ndarray) -> int:
-        idx = np.flatnonzero(mask & ~used)
-        if not len(idx):
-            raise RuntimeError("demo generator: no candidate row left for a corruption")
-        i = int(idx[rng.integers(len(idx))])
-        used[i] = True
-        return i
-
-    def partner(i: int, col: np.ndarray, ok) -> int:
-        """A later row of the same test series (two lines of the sheet) whose value differs clearly."""
-        cand = np.flatnonzero((series == series[i]) & ~used & np.isfinite(col) & ok(col[i], col))
-        if not len(cand):
-            return -1
-        j = int(cand[rng.integers(len(cand))])
-        used[j] = True
-        return j
-
-    def swap(col: str, n_pairs: int, ok, what: str, unit: str) -> None:
-        done = 0
-        x = vals[col].to_numpy()
-        for _ in range(200):
-            if done == n_pairs:
-                return
-            i = pick(np.isfinite(x))
-            j = partner(i, x, ok)
-            if j < 0:
-                continue
-            xi, xj = x[i], x[j]
-            for a, b in ((i, j), (j, i)):
-                out.append(dict(run_id=run_id[a], kind=f"swap_{col}",
-                                description=f"{what} of runs {run_id[i]} and {run_id[j]} swapped when the sheet was "
-                                            f"typed up: {x[a]:.4g}{unit} written {x[b]:.4g}{unit}"))
-            pair = [col, f"{col}_sd"]
-            row_i, row_j = vals.loc[i, pair].to_numpy(copy=True), vals.loc[j, pair].to_numpy(copy=True)
-            vals.loc[i, pair], vals.loc[j, pair] = row_j, row_i
-            x = vals[col].to_numpy()
-            done += 1
-        raise RuntimeError(f"demo generator: no pair found for swap_{col}")
-
-    swap("holdup", CORRUPTIONS["swap_holdup"] // 2, lambda a, b: np.abs(b - a) > 0.25, "holdup", "")
-    swap("pgrad", CORRUPTIONS["swap_pgrad"] // 2,
-         lambda a, b: (np.abs(b) > 4 * np.abs(a)) | (np.abs(a) > 4 * np.abs(b)), "pgrad", " Pa/m")
-    for _ in range(CORRUPTIONS["pgrad_mbar_as_pa"]):
-        i = pick(np.isfinite(P) & (P > 300.0))
-        old = vals.loc[i, "pgrad"]
-        vals.loc[i, "pgrad"] = old / 100.0  # the sheet's sd is computed from the value as written
-        vals.loc[i, "pgrad_sd"] = math.sqrt((PGRAD_SD_REL * old / 100.0) ** 2 + PGRAD_SD_ABS**2)
-        out.append(dict(run_id=run_id[i], kind="pgrad_mbar_as_pa",
-                        description=f"pgrad typed in mbar/m under the Pa/m header: {old:.4g} Pa/m written "
-                                    f"{old / 100:.4g} (pgrad_sd computed from the written value)"))
-    grav = truth["pgrad_gravity"].to_numpy()
-    heavy = np.isfinite(P) & (np.abs(vals["theta"].to_numpy()) >= 3) & (np.abs(vals["theta"].to_numpy()) <= 5) \
-        & (np.abs(grav) > 0.7 * np.abs(truth["pgrad"].to_numpy())) & (np.abs(P) > 150.0)
-    for _ in range(CORRUPTIONS["theta_sign"]):
-        i = pick(heavy)
-        th = vals.loc[i, "theta"]
-        vals.loc[i, "theta"] = -th
-        out.append(dict(run_id=run_id[i], kind="theta_sign",
-                        description=f"inclination sign slip: the run was at {th:+.1f} deg, written {-th:+.1f} deg"))
-    for _ in range(CORRUPTIONS["holdup_wrong_run"]):
-        while True:
-            i = pick(np.isfinite(H))
-            cand = np.flatnonzero((sheet["campaign"].to_numpy() == sheet["campaign"].iloc[i]) & np.isfinite(H)
-                                  & (np.abs(H - H[i]) > 0.25) & (np.arange(n) != i))
-            if len(cand):
-                break
-        j = int(cand[rng.integers(len(cand))])
-        old = vals.loc[i, "holdup"]
-        vals.loc[i, "holdup"] = H[j]
-        out.append(dict(run_id=run_id[i], kind="holdup_wrong_run",
-                        description=f"holdup copied from run {run_id[j]}: measured {old:.3f}, written {H[j]:.3f}"))
-    for _ in range(CORRUPTIONS["vsg_ft_per_s"]):
-        i = pick((vals["vsg"].to_numpy() > 1.0) & (vals["vsg"].to_numpy() < 8.0) & (np.isfinite(H) | np.isfinite(P)))
-        old = vals.loc[i, "vsg"]
-        vals.loc[i, "vsg"] = old / 0.3048
-        out.append(dict(run_id=run_id[i], kind="vsg_ft_per_s",
-                        description=f"gas rate read from a meter display in ft/s: {old:.4g} m/s written "
-                                    f"{old / 0.3048:.4g}"))
-    order = {r: k for k, r in enumerate(run_id)}
-    return pd.DataFrame(sorted(out, key=lambda d: order[d["run_id"]]), columns=["run_id", "kind", "description"])
 
 
 def write_demo(out_dir: str | Path = DEMO_DIR, seed: int = SEED) -> DemoCampaign:
@@ -397,8 +288,6 @@ def baseline_vs_truth(camp: DemoCampaign, closure=None) -> dict:
     Holdup MAE [-] and median relative holdup error [-] in the rows the reference calls stratified
     and in all rows; median relative pgrad error; share of rows with the same pattern.
     """
-    from ..closures.baseline import BaselineClosure
-
     closure = closure or BaselineClosure()
     t = camp.truth
     with torch.no_grad():
