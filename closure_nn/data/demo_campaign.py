@@ -21,7 +21,7 @@ Steps of :func:`generate`:
    light oil: invented linear/exponential fits; air: Sutherland's law, from memory), written
    with the precision a lab sheet would carry, in field units (``D [mm]``, ``mul [cP]`` ...).
 3. The truth: the reference closure on exactly the written conditions (read back through
-   :func:`closure_nn.data.table_io.convert_headers`, validated, in SI).
+   :func:`closure_nn.data.header_units.convert_headers`, validated, in SI).
 4. Noise: the spec's "holdup +-0.02 absolute, pgrad +-5 %" are expanded uncertainties with
    coverage factor k = 2 (about 95 %; JCGM 100:2008, the GUM, sec. 6.2-6.3), so the noise drawn
    is one standard uncertainty: holdup 0.01 absolute; pgrad 2.5 % plus a 1 Pa/m floor. Columns
@@ -53,7 +53,7 @@ from .demo_corruptions import corrupt
 from .demo_fluids import M_AIR, air_viscosity, oil_properties, water_density, water_surface_tension, water_viscosity
 from .demo_reference import ReferenceClosure
 from .schema import to_conditions
-from .table_io import convert_headers
+from .header_units import convert_headers
 from .validate import validate_table
 
 SEED = 20310417

@@ -43,7 +43,8 @@ from ..physics.checks import InputError
 from ..physics.vocabulary import PATTERNS
 from .schema import (COLUMN, COLUMNS, INPUTS, PROVENANCE, Z_DEFAULT, ColumnSpec, can_compute_rhog,
                      fill_gas_density, ordered_columns)
-from .table_io import THOUSANDS, convert_headers
+from .csv_reading import THOUSANDS
+from .header_units import convert_headers
 from .units import from_si, slip_hint
 
 #: check code -> what it means (used in the summary)
