@@ -50,40 +50,29 @@ Numbers are SI; a string ``"<number> <unit>"`` gives a field unit (``"45 bara"``
 
 Standard conditions of gas volume rates: 15 degC and 1.01325 bar (ISO 13443 reference
 conditions, common practice); liquid volume rates use the constant liquid density.
+
+The profile CSV is read by :mod:`closure_nn.line.profile`; quantities and rates are parsed by
+:mod:`closure_nn.line.quantities` (``read_profile``, ``parse_quantity`` and ``parse_rate`` import
+from here as well).
 """
 from __future__ import annotations
 
-import math
-import re
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
+import yaml
+from omegaconf import DictConfig, OmegaConf
 
-from ..data.units import parse_header, to_si
+from ..config_checks import check_keys
+from ..config_location import CONF_DIR
 from ..fluid_properties import props_si
 from ..physics.checks import InputError, check_range
 from ..physics.conditions import R_UNIVERSAL
+from .profile import read_profile
+from .quantities import P_STD, T_STD, parse_quantity, parse_rate
 
-#: profile column -> (dimension in closure_nn.data.units, required)
-PROFILE_COLUMNS: dict[str, tuple[str, bool]] = {
-    "distance": ("length", True), "elevation": ("length", True), "D": ("length", False),
-    "roughness": ("length", False), "section": ("none", False), "T": ("temperature", False),
-}
-#: standard reference conditions of gas volume rates: 15 degC, 1.01325 bar (ISO 13443)
-T_STD = 288.15  # K
-P_STD = 101325.0  # Pa
-_DAY = 86400.0  # s
-_BBL = 0.158987294928  # m3 per US oil barrel (exact; NIST SP 811 Appendix B.8)
-#: rate unit -> (kind, factor to kg/s for 'mass' or to standard m3/s for 'volume')
-RATE_UNITS: dict[str, tuple[str, float]] = {
-    "kg/s": ("mass", 1.0), "kg/h": ("mass", 1 / 3600), "kg/d": ("mass", 1 / _DAY), "t/d": ("mass", 1000 / _DAY),
-    "t/h": ("mass", 1000 / 3600), "Sm3/d": ("volume", 1 / _DAY), "Sm3/h": ("volume", 1 / 3600),
-    "MSm3/d": ("volume", 1e6 / _DAY), "m3/d": ("volume", 1 / _DAY), "m3/h": ("volume", 1 / 3600),
-    "bbl/d": ("volume", _BBL / _DAY),
-}
-_NUM_UNIT = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*(.*?)\s*$")
 #: keys of a line YAML, and of its tables (sections.<name> takes D and roughness)
 LINE_KEYS = ("name", "invented", "description", "profile", "D", "roughness", "sections", "fluid", "temperature",
              "rates", "pressure")
@@ -142,103 +131,10 @@ class LineDefinition:
         return len(self.distance) - 1
 
 
-def parse_quantity(value, dimension: str, key: str, where: str = "") -> float:
-    """A YAML number (SI) or ``"<number> <unit>"`` string -> float in SI.
-
-    >>> parse_quantity("45 bara", "pressure", "pressure.outlet"), parse_quantity(0.25, "length", "D")
-    (4500000.0, 0.25)
-    """
-    if isinstance(value, bool) or value is None:
-        raise InputError(f"{where}: {key} = {value!r}; expected a number (SI) or '<number> <unit>'")
-    if isinstance(value, (int, float)):
-        return float(value)
-    m = _NUM_UNIT.match(str(value))
-    if m is None:
-        raise InputError(f"{where}: {key} = {value!r}; expected a number (SI) or '<number> <unit>'")
-    x, unit = float(m.group(1)), m.group(2)
-    return float(to_si(x, unit, dimension, key, where)) if unit else x
-
-
-def parse_rate(value, phase: str, rho_std: float, where: str = "") -> float:
-    """A rate ``"<number> <unit>"`` (units of :data:`RATE_UNITS`; bare number = kg/s) -> kg/s.
-
-    ``rho_std`` [kg/m3] converts volume rates: gas standard density, or the liquid density.
-
-    >>> round(parse_rate("864 m3/d", "liquid", 800.0), 6)
-    8.0
-    """
-    if isinstance(value, (int, float)) and not isinstance(value, bool):
-        m_dot = float(value)
-    else:
-        m = _NUM_UNIT.match(str(value))
-        unit = m.group(2) if m else None
-        if m is None or unit not in RATE_UNITS:
-            raise InputError(f"{where}: rates.{phase} = {value!r}; expected '<number> <unit>' with a unit of "
-                             f"{', '.join(RATE_UNITS)} (a bare number is kg/s)")
-        kind, a = RATE_UNITS[unit]
-        m_dot = float(m.group(1)) * a * (rho_std if kind == "volume" else 1.0)
-    if not (math.isfinite(m_dot) and m_dot >= 0):
-        raise InputError(f"{where}: rates.{phase} = {value!r} gives {m_dot:g} kg/s; rates must be >= 0")
-    return m_dot
-
-
-def read_profile(path: str | Path) -> dict[str, np.ndarray]:
-    """Read and check a profile CSV (columns in the module docstring) -> SI arrays by name."""
-    import pandas as pd
-
-    path = Path(path)
-    try:
-        df = pd.read_csv(path, comment="#", skipinitialspace=True)
-    except FileNotFoundError:
-        raise
-    except Exception as exc:  # pandas raises several parser errors
-        raise InputError(f"{path}: cannot read the profile as CSV ({str(exc).splitlines()[0]})") from None
-    out: dict[str, np.ndarray] = {}
-    for header in df.columns:
-        name, unit = parse_header(header)
-        if name not in PROFILE_COLUMNS:
-            raise InputError(f"{path}: unknown profile column {header!r}; known: {', '.join(PROFILE_COLUMNS)}")
-        dim, _ = PROFILE_COLUMNS[name]
-        if name == "section":
-            out[name] = df[header].astype(str).str.strip().to_numpy(dtype=object)
-            continue
-        if unit == "km" and dim == "length":
-            vals = pd.to_numeric(df[header], errors="coerce").to_numpy(dtype=np.float64) * 1000.0
-        else:
-            vals = pd.to_numeric(df[header], errors="coerce").to_numpy(dtype=np.float64)
-            vals = to_si(vals, unit, dim, header, str(path)) if unit else vals
-        bad = ~np.isfinite(vals)
-        if name in ("D", "roughness"):
-            bad[-1] = False  # last row unused for segment-wise columns
-        if bad.any():
-            i = int(np.flatnonzero(bad)[0])
-            raise InputError(f"{path}: data row {i + 1}, column {header!r}: {df[header].iloc[i]!r} is not a number")
-        out[name] = vals
-    for name, (_, required) in PROFILE_COLUMNS.items():
-        if required and name not in out:
-            raise InputError(f"{path}: the profile needs a column {name!r} [m]")
-    s, z = out["distance"], out["elevation"]
-    if len(s) < 2:
-        raise InputError(f"{path}: a profile needs at least two stations, found {len(s)}")
-    ds, dz = np.diff(s), np.diff(z)
-    if (ds <= 0).any():
-        i = int(np.flatnonzero(ds <= 0)[0])
-        raise InputError(f"{path}: data row {i + 2}: distance {s[i + 1]:g} m does not rise above the previous "
-                         f"row ({s[i]:g} m); stations must be in flow order, strictly rising")
-    steep = np.abs(dz) > ds * (1 + 1e-12)
-    if steep.any():
-        i = int(np.flatnonzero(steep)[0])
-        raise InputError(f"{path}: data rows {i + 1}-{i + 2}: elevation changes by {dz[i]:g} m over {ds[i]:g} m "
-                         "of pipe; distance is measured along the pipe, so |elevation step| <= distance step")
-    return out
-
-
 def _resolve(path: str, base_dir: Path | None) -> Path:
     p = Path(path)
     if p.is_absolute():
         return p
-    from ..config import CONF_DIR
-
     for root in ([base_dir] if base_dir else []) + [Path.cwd(), CONF_DIR.parent]:
         if (root / p).exists():
             return root / p
@@ -347,13 +243,9 @@ def line_from_config(cfg: Mapping, base_dir: str | Path | None = None, where: st
 
     ``base_dir`` is the directory of the YAML file, for a relative ``profile`` path.
     """
-    from omegaconf import DictConfig, OmegaConf
-
     if isinstance(cfg, DictConfig):
         cfg = OmegaConf.to_container(cfg, resolve=True)
-    from ..config_checks import check_keys  # a misspelled key: the nearest valid name
-
-    check_keys(cfg, LINE_KEYS, where)
+    check_keys(cfg, LINE_KEYS, where)  # a misspelled key: the nearest valid name
     for table, known in LINE_TABLE_KEYS.items():
         if isinstance(cfg.get(table), Mapping):
             check_keys(cfg[table], known, f"{where}, {table}")
@@ -395,8 +287,6 @@ def line_from_config(cfg: Mapping, base_dir: str | Path | None = None, where: st
 
 def load_line(path: str | Path) -> LineDefinition:
     """Read a line YAML file (format in the module docstring)."""
-    import yaml
-
     path = Path(path)
     try:
         cfg = yaml.safe_load(path.read_text())
