@@ -212,13 +212,20 @@ def _development_report(cfg: DictConfig, lab: LabTable, fit_rows: pd.DataFrame, 
                          f"seeded {100 * float(cfg.data.val_fraction):.0f} % of the accepted lab rows held back from the "
                          "fine-tune (they also stop it early); floors: holdup 0.01 for MAPE, |pgrad| 1 Pa/m"),
         "design_space": space.describe(), "synthetic": {k: synth.report[k] for k in ("n", "patterns", "seconds")},
-        "rows_per_term": {"pretrain": pre.metrics.get("rows_per_term"), "finetune": ft.metrics.get("rows_per_term")},
+        "rows_per_term": {"pretrain": _rows_per_term(pre.metrics), "finetune": _rows_per_term(ft.metrics)},
         "label_map_conflicts": {k: _pattern_conflicts(preds[k], dev_rows) for k in ("baseline", "shipped")}
                                | {"fit_rows_baseline": _pattern_conflicts(predict_table(base, fit_rows, solver), fit_rows)},
         "scores": scores, "selection": ft.metrics["selection"], "shipped": "finetuned" if adopted else "pretrained",
         "bundle": str(bundle),
     }
     return report, preds
+
+
+def _rows_per_term(metrics: dict) -> dict | None:
+    """Rows per loss term of a stage (an ensemble stage: of its first member; members differ only
+    by bootstrap replicates)."""
+    members = metrics.get("members") or [metrics]
+    return members[0].get("rows_per_term")
 
 
 def _prediction_table(preds: dict, rows: pd.DataFrame) -> pd.DataFrame:
