@@ -51,7 +51,8 @@ adds to the pressure drop, never subtracts from it. Measurement uncertainty: ``h
 ``pgrad_sd_abs``.
 
 All physics runs vectorised in torch on the whole batch; only the reason strings are assembled
-per row.
+per row. The checks and their thresholds (:class:`AuditSettings`) live in
+:mod:`closure_nn.audit.row_checks`.
 """
 from __future__ import annotations
 
@@ -63,58 +64,15 @@ import torch
 
 from ..data.schema import to_conditions
 from ..physics.entrainment import ishii_mishima
-from ..physics.geometry import stratified
 from ..physics.local_state import local_state
 from ..physics.momentum import pressure_gradient, shear_stresses
-from ..physics.patterns import kh_gas_velocity
 from ..physics.point import solve_points
 from ..physics.vocabulary import ANNULAR, PATTERNS, STRATIFIED_PATTERNS
-from .residuals import KIND_ANNULAR, KIND_NONE, KIND_STRATIFIED, measured_residuals, robust_z
+from .residuals import KIND_ANNULAR, KIND_NONE, KIND_STRATIFIED, MeasuredResiduals, measured_residuals, robust_z
+from .row_checks import (CHECKS, INFORMATIONAL, RESIDUALS, SCORES, AuditSettings, ClosureFit, Measured, Misfits,
+                         closure_checks, closure_fit, domain_check, impossibility_checks, misfits, residual_checks)
 
-RESIDUALS = ("liquid", "gas", "combined")
-#: residual scores checked with robust statistics (``joint``: both phase balances at once)
-SCORES = RESIDUALS + ("joint",)
-#: check code -> one-line meaning (report legend)
-CHECKS: dict[str, str] = {
-    "residual_liquid": "liquid momentum residual beyond k robust sd",
-    "residual_gas": "gas momentum residual beyond k robust sd",
-    "residual_combined": "combined momentum residual beyond k robust sd",
-    "residual_joint": "both phase balances cannot close together within the measurement uncertainty",
-    "holdup_vs_closure": "measured holdup far from the closure's, relative to the uncertainty",
-    "holdup_above_stratified": "labelled stratified, holdup far above the thickest stratified root",
-    "pgrad_vs_closure": "measured pgrad far from the closure's, relative to the uncertainty",
-    "pgrad_sign": "pgrad sign opposite to the closure's",
-    "pattern_kh": "labelled stratified, closure equilibrium Kelvin-Helmholtz unstable",
-    "pgrad_below_head": "pgrad below the lightest possible hydrostatic head (negative friction)",
-    "holdup_below_no_slip": "upward flow, holdup below the no-slip holdup",
-    "outside_domain": "outside the closure's training domain",
-}
-#: checks that describe the closure's coverage, not the measurement: reported, never "suspect"
-INFORMATIONAL = ("outside_domain",)
-
-
-@dataclass(frozen=True)
-class AuditSettings:
-    """Thresholds of :func:`audit_dataset` (see the module table). Units in brackets."""
-
-    k_robust: float = 4.0  # [-] robust sd of a residual before a row is flagged
-    residual_sd_floor: float = 1.0  # [-] floor of the robust sd of standardised residuals e = R/u_R
-    k_sigma: float = 3.0  # [-] combined standard deviations for the uncertainty-based checks
-    holdup_sd_default: float = 0.02  # [-] holdup sd where the table gives none
-    pgrad_sd_rel: float = 0.05  # [-] relative pgrad sd where the table gives none
-    pgrad_sd_abs: float = 1.0  # [Pa/m] absolute part of the default pgrad sd
-    model_holdup_sd: float = 0.05  # [-] model uncertainty of the closure's holdup
-    model_pgrad_rel: float = 0.25  # [-] relative model uncertainty of the closure's pgrad
-    model_pgrad_abs: float = 2.0  # [Pa/m] absolute model uncertainty of the closure's pgrad
-    kh_margin: float = 0.1  # [-] tolerance on u_G / u_G,KH > 1 for stratified labels
-
-    @classmethod
-    def from_mapping(cls, m) -> "AuditSettings":
-        known = {f for f in cls.__dataclass_fields__}
-        bad = [k for k in m if k not in known]
-        if bad:
-            raise ValueError(f"unknown audit setting(s) {', '.join(bad)}; known: {', '.join(sorted(known))}")
-        return cls(**{k: float(v) for k, v in m.items()})
+__all__ = ["CHECKS", "RESIDUALS", "SCORES", "AuditResult", "AuditSettings", "audit_dataset"]
 
 
 @dataclass
@@ -173,18 +131,6 @@ def _entrainment(cond, solver: dict) -> torch.Tensor:
     return torch.full(cond.shape, float(E), dtype=torch.float64)
 
 
-def _nearest_root(roots: torch.Tensor, frac: torch.Tensor) -> torch.Tensor:
-    """The root of ``roots (N, 3)`` nearest to ``frac (N,)``; NaN where none."""
-    d = (roots - frac[:, None]).abs()
-    d = torch.where(torch.isfinite(d), d, torch.full_like(d, float("inf")))
-    j = d.argmin(dim=1, keepdim=True)
-    return torch.where(torch.isfinite(roots).any(dim=1), roots.gather(1, j)[:, 0], float("nan"))
-
-
-def _fmt(x: float) -> str:
-    return f"{x:.3g}"
-
-
 def audit_dataset(df: pd.DataFrame, closure, settings: AuditSettings | None = None,
                   solver: dict | None = None) -> AuditResult:
     """Audit every row of the SI table ``df`` against ``closure`` (module docstring).
@@ -195,11 +141,11 @@ def audit_dataset(df: pd.DataFrame, closure, settings: AuditSettings | None = No
     st = settings or AuditSettings()
     solver = dict(solver or {})
     cond = to_conditions(df, check=True, where=str(df.attrs.get("path", "audit table")))
-    n = len(df)
     H, P = _col(df, "holdup"), _col(df, "pgrad")
     sdH = torch.where(torch.isfinite(_col(df, "holdup_sd")), _col(df, "holdup_sd"), st.holdup_sd_default)
     sdP = torch.where(torch.isfinite(_col(df, "pgrad_sd")), _col(df, "pgrad_sd"),
                       st.pgrad_sd_rel * P.abs() + st.pgrad_sd_abs)
+    meas = Measured(H=H, P=P, sdH=sdH, sdP=sdP)
     observed = _pattern_names(df)
     with torch.no_grad():
         pred = solve_points(cond, closure, **solver)
@@ -207,16 +153,39 @@ def audit_dataset(df: pd.DataFrame, closure, settings: AuditSettings | None = No
     kind = _kinds(np.where(observed == "", predicted, observed))
     E = _entrainment(cond, solver)
     res = measured_residuals(cond, closure, H, P, kind, E, holdup_sd=sdH, pgrad_sd=torch.nan_to_num(sdP, nan=0.0))
-
     e_joint = _joint_score(cond, closure, pred, res, H, P, sdH, sdP)
-    # robust scores per configuration (stratified and annular scatter differently)
+    z, stats = _residual_scores(res, e_joint, st.residual_sd_floor)
+    fit = closure_fit(cond, closure, pred, res)
+    mis = misfits(meas, fit, pred.pattern, st)
+    lab_strat = torch.as_tensor(np.isin(observed, STRATIFIED_PATTERNS))
+    in_dom, outside = domain_check(cond, closure, pred, res)
+    checks = {**residual_checks(res, z, e_joint, st.k_robust), **closure_checks(cond, meas, fit, mis, res, lab_strat, st),
+              **impossibility_checks(cond, meas, st.k_sigma), **outside}
+    flags = np.stack([mask.numpy() for mask, _ in checks.values()], axis=1)
+    names, texts = list(checks), [t for _, t in checks.values()]
+    n = len(df)
+    t = pd.DataFrame({
+        **_row_columns(df, cond, observed, predicted, meas, res, e_joint, z, fit, mis), "in_domain": in_dom,
+        "suspect": flags[:, [j for j, k in enumerate(names) if k not in INFORMATIONAL]].any(axis=1),
+        "checks": [",".join(names[j] for j in np.flatnonzero(flags[i])) for i in range(n)],
+        "reasons": ["; ".join(texts[j][i] for j in np.flatnonzero(flags[i])) for i in range(n)],
+    })
+    counts = {k: int(flags[:, j].sum()) for j, k in enumerate(names)}
+    label = getattr(closure, "label", type(closure).__name__)
+    return AuditResult(table=t, stats=stats, settings=st, closure_label=label, counts=counts)
+
+
+def _residual_scores(res: MeasuredResiduals, e_joint: torch.Tensor, sd_floor: float) -> tuple[dict, dict]:
+    """Robust scores ``z`` (N,) of the standardised residuals per configuration (stratified and
+    annular scatter differently) and their statistics by ``'<configuration>/<residual>'``."""
+    n = int(res.kind.shape[0])
     z = {r: torch.full((n,), float("nan"), dtype=torch.float64) for r in SCORES}
     stats: dict = {}
     for code, name in ((KIND_STRATIFIED, "stratified"), (KIND_ANNULAR, "annular")):
         m = res.kind == code
         for r in SCORES:
             e = torch.where(m, e_joint if r == "joint" else res.standardised(r), float("nan"))
-            zz, med, sd = robust_z(e, st.residual_sd_floor)
+            zz, med, sd = robust_z(e, sd_floor)
             z[r] = torch.where(m, zz, z[r])
             x = (e_joint if r == "joint" else getattr(res, r))
             x = x[m & torch.isfinite(x)]
@@ -226,108 +195,27 @@ def audit_dataset(df: pd.DataFrame, closure, settings: AuditSettings | None = No
                 q = torch.quantile(x, torch.tensor([0.05, 0.5, 0.95], dtype=torch.float64)).tolist()
                 stats[f"{name}/{r}"] = {"n": int(x.numel()), "normalised_q05": q[0], "normalised_q50": q[1],
                                         "normalised_q95": q[2], "standardised_median": med, "standardised_robust_sd": sd}
+    return z, stats
 
-    # the closure's holdup and pgrad; stratified rows at the root nearest to the measurement
-    with torch.no_grad():
-        is_strat = res.kind == KIND_STRATIFIED
-        near = _nearest_root(pred.roots, torch.nan_to_num(res.frac, nan=0.5))
-        use_near = is_strat & torch.isfinite(near)
-        h_near = torch.where(use_near, near, 0.5)
-        s_near = local_state(cond, h_near, "stratified")
-        pg_near = pressure_gradient(s_near, shear_stresses(s_near, closure(s_near))).total
-        H_pred = torch.where(use_near, s_near.holdup, pred.holdup)
-        P_pred = torch.where(use_near, pg_near, pred.pgrad.total)
-        thick = torch.where(torch.isfinite(pred.roots), pred.roots, -1.0).max(dim=1).values
-        H_thick = torch.where(thick > 0, stratified(thick.clamp_min(1e-9), cond.D).liquid_fraction, float("nan"))
-        # KH at the closure's selected stratified equilibrium (TD76)
-        h_eq = torch.where(torch.isfinite(pred.roots[:, 0]), pred.roots[:, 0], 0.5)
-        s_eq = local_state(cond, h_eq, "stratified")
-        kh_eq = torch.where(torch.isfinite(pred.roots[:, 0]), s_eq.u_G / kh_gas_velocity(cond, s_eq), float("nan"))
 
-    sig_H = torch.sqrt(sdH**2 + st.model_holdup_sd**2)
-    sig_P = torch.sqrt(sdP**2 + (st.model_pgrad_rel * P_pred) ** 2 + st.model_pgrad_abs**2)
-    z_H = (H - H_pred) / sig_H
-    z_P = (P - P_pred) / sig_P
-    c = st.k_sigma
-    # robust scores of the prediction misfit within each predicted pattern
-    rz_H, rz_P = torch.full_like(z_H, float("nan")), torch.full_like(z_P, float("nan"))
-    for code in torch.unique(pred.pattern):
-        m = pred.pattern == code
-        for zz, out in ((z_H, rz_H), (z_P, rz_P)):
-            r, _, _ = robust_z(torch.where(m, zz, float("nan")), st.residual_sd_floor)
-            out.copy_(torch.where(m, r, out))
-    kh_used = torch.where(torch.isfinite(res.kh_ratio), res.kh_ratio, kh_eq)
-    lab_strat = torch.as_tensor(np.isin(observed, STRATIFIED_PATTERNS))
-    sin_t = torch.sin(cond.theta)
-    lam = cond.vsl / cond.vm.clamp_min(1e-300)
-    H_lo = torch.where(torch.isfinite(H), (H - c * sdH).clamp(0, 1), 0.0)
-    H_hi = torch.where(torch.isfinite(H), (H + c * sdH).clamp(0, 1), 1.0)
-    H_light = torch.where(sin_t >= 0, H_lo, H_hi)
-    head_min = (cond.rhol * H_light + cond.rhog * (1 - H_light)) * cond.g * sin_t
-
-    checks: dict[str, tuple[torch.Tensor, list]] = {}
-    for r in RESIDUALS:
-        zz, raw = z[r], getattr(res, r)
-        checks[f"residual_{r}"] = (zz.abs() > st.k_robust,
-                                   [f"{r} balance misses by {_fmt(a)} of its force scale ({_fmt(b)} robust sd)" for a, b in
-                                    zip(raw.tolist(), zz.tolist())])
-    checks["residual_joint"] = (z["joint"].abs() > st.k_robust, [
-        f"both balances close only {_fmt(a)} measurement sd away ({_fmt(b)} robust sd)"
-        for a, b in zip(e_joint.tolist(), z["joint"].tolist())])
-    above = lab_strat & ((H - H_thick) / sig_H > c)
-    checks["holdup_above_stratified"] = (above, [
-        f"labelled stratified, holdup {_fmt(a)} above the thickest stratified root's {_fmt(b)}"
-        for a, b in zip(H.tolist(), H_thick.tolist())])
-    checks["holdup_vs_closure"] = ((z_H.abs() > c) & (rz_H.abs() > st.k_robust) & ~above, [
-        f"holdup {_fmt(a)} vs closure {_fmt(b)} ({_fmt(zz)} sd)" for a, b, zz in zip(H.tolist(), H_pred.tolist(), z_H.tolist())])
-    checks["pgrad_vs_closure"] = ((z_P.abs() > c) & (rz_P.abs() > st.k_robust), [
-        f"pgrad {_fmt(a)} Pa/m vs closure {_fmt(b)} Pa/m ({_fmt(zz)} sd)"
-        for a, b, zz in zip(P.tolist(), P_pred.tolist(), z_P.tolist())])
-    opposite = (torch.sign(P) * torch.sign(P_pred) < 0) & (P.abs() > c * sdP) & (P_pred.abs() > c * (sig_P**2 - sdP**2).sqrt())
-    checks["pgrad_sign"] = (opposite, [
-        f"pgrad {_fmt(a)} Pa/m has the opposite sign of the closure's {_fmt(b)} Pa/m (inclination {_fmt(t)} deg)"
-        for a, b, t in zip(P.tolist(), P_pred.tolist(), torch.rad2deg(cond.theta).tolist())])
-    checks["pattern_kh"] = (lab_strat & (kh_used > 1 + st.kh_margin), [
-        f"labelled stratified but u_G/u_G,KH = {_fmt(k)} at the {'measured level' if m else 'closure equilibrium'}"
-        for k, m in zip(kh_used.tolist(), torch.isfinite(res.kh_ratio).tolist())])
-    checks["pgrad_below_head"] = (P + c * sdP < head_min, [
-        f"pgrad {_fmt(a)} Pa/m below the lightest hydrostatic head {_fmt(b)} Pa/m" for a, b in
-        zip(P.tolist(), head_min.tolist())])
-    checks["holdup_below_no_slip"] = ((sin_t > 0) & (H + c * sdH < lam), [
-        f"upward flow with holdup {_fmt(a)} below the no-slip {_fmt(b)}" for a, b in zip(H.tolist(), lam.tolist())])
-    in_dom = np.full(n, np.nan, dtype=object)
-    if hasattr(closure, "in_domain"):
-        feats = torch.where(torch.isfinite(res.features).all(dim=1, keepdim=True), res.features,
-                            _predicted_features(cond, closure, pred))
-        ok = torch.isfinite(feats).all(dim=1)
-        inside = closure.in_domain(torch.nan_to_num(feats, nan=0.0)).reshape(-1) & ok
-        in_dom = inside.numpy().astype(object)
-        checks["outside_domain"] = (ok & ~inside, ["outside the closure's training domain"] * n)
-
-    flags = np.zeros((n, len(checks)), dtype=bool)
-    for j, (mask, _) in enumerate(checks.values()):
-        flags[:, j] = mask.numpy()
-    names, texts = list(checks), [t for _, t in checks.values()]
-    codes = [",".join(names[j] for j in np.flatnonzero(flags[i])) for i in range(n)]
-    reasons = ["; ".join(texts[j][i] for j in np.flatnonzero(flags[i])) for i in range(n)]
+def _row_columns(df: pd.DataFrame, cond, observed: np.ndarray, predicted: np.ndarray, meas: Measured,
+                 res: MeasuredResiduals, e_joint: torch.Tensor, z: dict, fit: ClosureFit, mis: Misfits) -> dict:
+    """The per-row columns of :attr:`AuditResult.table` up to ``in_domain`` (in that order)."""
+    n = len(df)
     kind_name = np.array(["-", "stratified", "annular"], dtype=object)[res.kind.numpy() + 1]
-    t = pd.DataFrame({
+    return {
         "run_id": df["run_id"].astype(str).to_numpy() if "run_id" in df else np.arange(1, n + 1).astype(str),
         "campaign": df["campaign"].to_numpy() if "campaign" in df else "",
         "pattern": observed, "pattern_pred": predicted, "config": kind_name,
         "theta_deg": torch.rad2deg(cond.theta).numpy(), "vsl": cond.vsl.numpy(), "vsg": cond.vsg.numpy(),
-        "D": cond.D.numpy(), "holdup": H.numpy(), "pgrad": P.numpy(), "frac": res.frac.numpy(),
+        "D": cond.D.numpy(), "holdup": meas.H.numpy(), "pgrad": meas.P.numpy(), "frac": res.frac.numpy(),
         **{f"res_{r}": getattr(res, r).numpy() for r in RESIDUALS},
         **{f"e_{r}": res.standardised(r).numpy() for r in RESIDUALS}, "e_joint": e_joint.numpy(),
         **{f"z_{r}": z[r].numpy() for r in SCORES},
-        "holdup_pred": H_pred.numpy(), "pgrad_pred": P_pred.numpy(),
-        "z_holdup": z_H.numpy(), "z_pgrad": z_P.numpy(), "kh_ratio_eq": kh_eq.numpy(), "kh_ratio_meas": res.kh_ratio.numpy(), "in_domain": in_dom,
-        "suspect": flags[:, [j for j, k in enumerate(names) if k not in INFORMATIONAL]].any(axis=1),
-        "checks": codes, "reasons": reasons,
-    })
-    counts = {k: int(flags[:, j].sum()) for j, k in enumerate(names)}
-    label = getattr(closure, "label", type(closure).__name__)
-    return AuditResult(table=t, stats=stats, settings=st, closure_label=label, counts=counts)
+        "holdup_pred": fit.holdup.numpy(), "pgrad_pred": fit.pgrad.numpy(),
+        "z_holdup": mis.z_holdup.numpy(), "z_pgrad": mis.z_pgrad.numpy(), "kh_ratio_eq": fit.kh_ratio_eq.numpy(),
+        "kh_ratio_meas": res.kh_ratio.numpy(),
+    }
 
 
 def _joint_score(cond, closure, pred, res, H, P, sdH, sdP) -> torch.Tensor:
@@ -352,14 +240,3 @@ def _joint_score(cond, closure, pred, res, H, P, sdH, sdP) -> torch.Tensor:
         t = torch.where(ok, torch.maximum(tH, tP), float("inf")).min(dim=1).values
         has = (res.kind >= 0) & torch.isfinite(t) & (torch.isfinite(H) | torch.isfinite(P))
     return torch.where(has, t, float("nan"))
-
-
-def _predicted_features(cond, closure, pred) -> torch.Tensor:
-    """Closure features at the predicted stratified equilibrium (rows without a measured state)."""
-    from ..physics.groups import closure_features
-
-    h = torch.where(torch.isfinite(pred.roots[:, 0]), pred.roots[:, 0], float("nan"))
-    with torch.no_grad():
-        f = closure_features(local_state(cond, torch.nan_to_num(h, nan=0.5), "stratified"))
-    return torch.where(torch.isfinite(h)[:, None], f, float("nan"))
-
