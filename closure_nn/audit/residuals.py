@@ -183,50 +183,67 @@ def measured_residuals(
         sdP = torch.nan_to_num(torch.as_tensor(pgrad_sd, dtype=torch.float64).expand(cond.shape), nan=0.0)
         P = torch.nan_to_num(pgrad.detach().to(torch.float64), nan=0.0)
         Hc = torch.where(has_H, H, torch.full_like(H, 0.5)).clamp(_EDGE, 1 - _EDGE)
-        is_a = kind == KIND_ANNULAR
         T = torch.tensor(SD_OFFSETS, dtype=torch.float64)
         S = torch.cat([-T.flip(0), T[1:]])  # signed offsets (K,)
         Hg = (Hc[:, None] + S[None, :] * sdH[:, None]).clamp(1e-6, 1 - 1e-6)
-        cg = cond.unsqueeze(-1)
-        branches = []
-        for name in (STRATIFIED, ANNULAR):
-            if name == STRATIFIED:
-                out = _at(cond, h_from_holdup(Hc), STRATIFIED, closure, P, 0.0)
-                grid = _at(cg, h_from_holdup(Hg), STRATIFIED, closure, P[:, None], 0.0)
-                out["frac"] = h_from_holdup(Hc)
-            else:
-                out = _at(cond, film_frac_from_holdup(Hc, cond, E), ANNULAR, closure, P, E)
-                grid = _at(cg, film_frac_from_holdup(Hg, cg, E[:, None]), ANNULAR, closure, P[:, None], E[:, None])
-                out["frac"] = film_frac_from_holdup(Hc, cond, E)
-            for k, area in (("liquid", "A_L"), ("gas", "A_G"), ("combined", None)):
-                R = grid[f"{k}_raw"]
-                t_need = torch.full_like(R, float("inf"))
-                if area is not None:
-                    t_need = (R.abs() / (grid[area].abs() * sdP[:, None]).clamp_min(_TINY))
-                t_need = torch.where(R == 0, 0.0, t_need)
-                t_j = torch.maximum(S.abs().expand_as(R), t_need)
-                cross = torch.signbit(R[:, 1:]) != torch.signbit(R[:, :-1])
-                # zero of R by linear interpolation inside a cell whose ends differ in sign
-                w = R[:, :-1] / (R[:, :-1] - R[:, 1:]).where(cross, torch.ones_like(R[:, 1:]))
-                s_zero = S[:-1] + (S[1:] - S[:-1]) * w.clamp(0.0, 1.0)
-                t_cross = torch.where(cross, s_zero.abs(), float("inf"))
-                t = torch.minimum(t_j.min(dim=1).values, t_cross.min(dim=1).values).clamp_max(T[-1])
-                out[f"{k}_e"] = torch.where(torch.signbit(out[f"{k}_raw"]), -t, t)
-            branches.append(out)
-        strat, ann = branches
-        picked: dict[str, torch.Tensor] = {}
-        for k in MeasuredResiduals.__dataclass_fields__:
-            if k == "kind":
-                continue
-            sel = is_a[:, None] if k == "features" else is_a
-            picked[k] = torch.where(sel, ann[k], strat[k])
-        nan = float("nan")
-        for k in ("liquid", "gas", "liquid_raw", "gas_raw", "liquid_e", "gas_e"):
-            picked[k] = torch.where(has_both, picked[k], nan)
-        for k in ("combined", "combined_raw", "combined_e", "kh_ratio", "frac"):
-            picked[k] = torch.where(has_H, picked[k], nan)
-        picked["features"] = torch.where(has_H[:, None], picked["features"], nan)
+        strat, ann = (_configuration(name, cond, closure, Hc, Hg, P, E, sdP, S) for name in (STRATIFIED, ANNULAR))
+        picked = _pick(strat, ann, kind == KIND_ANNULAR, has_H, has_both)
     return MeasuredResiduals(kind=torch.where(has_H, kind, KIND_NONE), **picked)
+
+
+def _configuration(name: str, cond: Conditions, closure, Hc: torch.Tensor, Hg: torch.Tensor, P: torch.Tensor,
+                   E: torch.Tensor, sdP: torch.Tensor, S: torch.Tensor) -> dict[str, torch.Tensor]:
+    """Every field of :class:`MeasuredResiduals` but ``kind`` for all rows taken in configuration
+    ``name``: at the measured holdup ``Hc (N,)``, and the standardised residuals ``*_e`` from the
+    balances on the holdup grid ``Hg (N, K)`` (signed offsets ``S (K,)`` [sd])."""
+    cg = cond.unsqueeze(-1)
+    if name == STRATIFIED:
+        out = _at(cond, h_from_holdup(Hc), STRATIFIED, closure, P, 0.0)
+        grid = _at(cg, h_from_holdup(Hg), STRATIFIED, closure, P[:, None], 0.0)
+        out["frac"] = h_from_holdup(Hc)
+    else:
+        out = _at(cond, film_frac_from_holdup(Hc, cond, E), ANNULAR, closure, P, E)
+        grid = _at(cg, film_frac_from_holdup(Hg, cg, E[:, None]), ANNULAR, closure, P[:, None], E[:, None])
+        out["frac"] = film_frac_from_holdup(Hc, cond, E)
+    for k, area in (("liquid", "A_L"), ("gas", "A_G"), ("combined", None)):
+        t = _sd_to_close(grid[f"{k}_raw"], None if area is None else grid[area], sdP, S)
+        out[f"{k}_e"] = torch.where(torch.signbit(out[f"{k}_raw"]), -t, t)
+    return out
+
+
+def _sd_to_close(R: torch.Tensor, area: torch.Tensor | None, sdP: torch.Tensor, S: torch.Tensor) -> torch.Tensor:
+    """|e| (N,): the fewest measurement sd that close a balance whose residual on the holdup grid is
+    ``R (N, K)``; ``area (N, K)`` [m2] is its slope in pgrad (None: the balance has no pgrad),
+    capped at the largest offset of ``S``."""
+    t_need = torch.full_like(R, float("inf"))
+    if area is not None:
+        t_need = (R.abs() / (area.abs() * sdP[:, None]).clamp_min(_TINY))
+    t_need = torch.where(R == 0, 0.0, t_need)
+    t_j = torch.maximum(S.abs().expand_as(R), t_need)
+    cross = torch.signbit(R[:, 1:]) != torch.signbit(R[:, :-1])
+    # zero of R by linear interpolation inside a cell whose ends differ in sign
+    w = R[:, :-1] / (R[:, :-1] - R[:, 1:]).where(cross, torch.ones_like(R[:, 1:]))
+    s_zero = S[:-1] + (S[1:] - S[:-1]) * w.clamp(0.0, 1.0)
+    t_cross = torch.where(cross, s_zero.abs(), float("inf"))
+    return torch.minimum(t_j.min(dim=1).values, t_cross.min(dim=1).values).clamp_max(S[-1])
+
+
+def _pick(strat: dict, ann: dict, is_a: torch.Tensor, has_H: torch.Tensor, has_both: torch.Tensor) -> dict:
+    """Per row the annular or stratified values; NaN where the balance lacks its measurements
+    (phase balances need holdup and pgrad, the combined one the holdup)."""
+    picked: dict[str, torch.Tensor] = {}
+    for k in MeasuredResiduals.__dataclass_fields__:
+        if k == "kind":
+            continue
+        sel = is_a[:, None] if k == "features" else is_a
+        picked[k] = torch.where(sel, ann[k], strat[k])
+    nan = float("nan")
+    for k in ("liquid", "gas", "liquid_raw", "gas_raw", "liquid_e", "gas_e"):
+        picked[k] = torch.where(has_both, picked[k], nan)
+    for k in ("combined", "combined_raw", "combined_e", "kh_ratio", "frac"):
+        picked[k] = torch.where(has_H, picked[k], nan)
+    picked["features"] = torch.where(has_H[:, None], picked["features"], nan)
+    return picked
 
 
 def _median(v: torch.Tensor) -> float:
