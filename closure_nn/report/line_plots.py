@@ -7,6 +7,9 @@ the band and a hatched span in the panels. In the same tick row a light tick mar
 inside the training domain but outside the measured-data domain (supported by synthetic baseline
 points only). An ensemble appears as a shaded min-max band with its mean dashed. The caution is
 printed at the foot of the figure.
+
+matplotlib is imported inside the drawing functions (with the file-only Agg backend): importing
+this module (e.g. for :func:`key_numbers`) never loads it or switches a user's backend.
 """
 from __future__ import annotations
 
@@ -110,7 +113,6 @@ def plot_line(stations, band=None, path: str | Path = "line.png", title: str = "
 
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
-    from matplotlib.patches import Patch
 
     comp = stations[stations["role"] == "compare"]
     names = list(dict.fromkeys(comp["closure"]))
@@ -124,6 +126,27 @@ def plot_line(stations, band=None, path: str | Path = "line.png", title: str = "
     ax_p, ax_h = fig.add_subplot(gs[0]), fig.add_subplot(gs[1])
     ax_b = fig.add_subplot(gs[2], sharex=ax_p)
     ax_h.sharex(ax_p)
+    ood_any = _profiles(ax_p, ax_h, stations, comp, names, band)
+    unmeasured_any = _pattern_bands(ax_b, comp, names, n_bands)
+    _pattern_key(ax_b, comp, ood_any.any(), unmeasured_any)
+    for ax in (ax_p, ax_h):
+        plt.setp(ax.get_xticklabels(), visible=False)
+    ax_p.set_title(title, loc="left", fontsize=11)
+    if rows:
+        fig.add_subplot(gs[3]).axis("off")
+        _key_table(fig.add_subplot(gs[4]), rows, [LINE_COLOURS[k % len(LINE_COLOURS)] for k in range(len(names))])
+    # below the pattern legend; bbox_inches="tight" keeps it in the picture
+    y_foot = fig.axes[-1].get_position().y0 - (0.0 if rows else 0.03)  # under the key numbers or the pattern key
+    fig.text(0.01, y_foot, CAUTION, fontsize=6, color="#555555", wrap=True, va="top")
+    path = Path(path)
+    fig.savefig(path, dpi=110, bbox_inches="tight")
+    plt.close(fig)
+    return path
+
+
+def _profiles(ax_p, ax_h, stations, comp, names: list[str], band) -> np.ndarray:
+    """Pressure and holdup of each closure (and the ensemble band) over the terrain, out-of-domain
+    spans hatched; returns where any closure is outside its training domain (profile stations)."""
     ref = comp[comp["closure"] == names[0]] if names else stations
     x_km, z = ref["distance"].to_numpy() / 1e3, ref["elevation"].to_numpy()
     for ax in (ax_p, ax_h):
@@ -153,7 +176,12 @@ def plot_line(stations, band=None, path: str | Path = "line.png", title: str = "
     ax_h.set_ylabel("liquid holdup [-]")
     ax_h.set_ylim(bottom=0)
     ax_p.legend(loc="upper right", fontsize=8, frameon=False)
-    # pattern bands, one per closure
+    return ood_any
+
+
+def _pattern_bands(ax_b, comp, names: list[str], n_bands: int) -> bool:
+    """One band per closure coloured by flow pattern, with the tick row of stations outside the
+    training (dark) or only the measured-data domain (light); returns whether any is light."""
     unmeasured_any = False
     for k, name in enumerate(names):
         d = comp[comp["closure"] == name]
@@ -171,24 +199,18 @@ def plot_line(stations, band=None, path: str | Path = "line.png", title: str = "
     ax_b.set_yticks([n_bands - 1 - k + 0.45 for k in range(len(names))], names, fontsize=8)
     ax_b.set_ylim(0, n_bands)
     ax_b.set_xlabel("distance along the pipe [km]")
+    return unmeasured_any
+
+
+def _pattern_key(ax_b, comp, ood_any: bool, unmeasured_any: bool) -> None:
+    """The legend of the pattern colours and domain ticks, under the bands."""
+    from matplotlib.patches import Patch
+
     used = [p for p in PATTERNS if p in set(comp["pattern"])]
     handles = [Patch(color=PATTERN_COLOURS[p], label=p.replace("_", " ")) for p in used]
-    if ood_any.any() or (~comp["in_domain"].astype(bool)).any():
+    if ood_any or (~comp["in_domain"].astype(bool)).any():
         handles.append(Patch(color=OUTSIDE_DOMAIN, label="outside training domain"))
     if unmeasured_any:
         handles.append(Patch(color=OUTSIDE_MEASURED, label="outside measured data"))
     ax_b.legend(handles=handles, loc="upper center", bbox_to_anchor=(0.5, -0.55), ncol=min(len(handles), 5),
                 fontsize=8, frameon=False)
-    for ax in (ax_p, ax_h):
-        plt.setp(ax.get_xticklabels(), visible=False)
-    ax_p.set_title(title, loc="left", fontsize=11)
-    if rows:
-        fig.add_subplot(gs[3]).axis("off")
-        _key_table(fig.add_subplot(gs[4]), rows, [LINE_COLOURS[k % len(LINE_COLOURS)] for k in range(len(names))])
-    # below the pattern legend; bbox_inches="tight" keeps it in the picture
-    y_foot = fig.axes[-1].get_position().y0 - (0.0 if rows else 0.03)  # under the key numbers or the pattern key
-    fig.text(0.01, y_foot, CAUTION, fontsize=6, color="#555555", wrap=True, va="top")
-    path = Path(path)
-    fig.savefig(path, dpi=110, bbox_inches="tight")
-    plt.close(fig)
-    return path
