@@ -104,6 +104,56 @@ def domain_mask(z: torch.Tensor, lo: torch.Tensor, hi: torch.Tensor, points: tor
     return (box & near).reshape(z.shape[:-1])
 
 
+def _factor_bounds(bound: float | dict, direct_span: float) -> list[float]:
+    """The correction bound of each factor (f_wl, f_wg, f_i) [-], checked positive and known."""
+    bounds = [float(bound.get(k, 1.0)) for k in OUTPUT_NAMES] if isinstance(bound, dict) else [float(bound)] * 3
+    if isinstance(bound, dict) and set(bound) - set(OUTPUT_NAMES):
+        raise ValueError(f"bound: unknown factor(s) {sorted(set(bound) - set(OUTPUT_NAMES))}; known: {', '.join(OUTPUT_NAMES)}")
+    if min(bounds) <= 0 or direct_span <= 0:
+        raise ValueError(f"bound and direct_span must be positive, got {bound} and {direct_span}")
+    return bounds
+
+
+def _branch_layout(inputs: dict | None, learn: list[str], base_input: bool) -> tuple[dict | None, list]:
+    """The checked ``inputs`` table (output -> feature names or None) and the branches, each
+    (input column indices, output indices). One branch for all learned factors when ``inputs`` is
+    None; else one per learned factor. Column ``len(FEATURE_NAMES)`` is the baseline input, read
+    by branches of f_i when ``base_input``."""
+    n_in = len(FEATURE_NAMES)
+    learned = [OUTPUT_NAMES.index(k) for k in learn]
+    i_fi = OUTPUT_NAMES.index("f_i")
+    extra = lambda outs: [n_in] if base_input and i_fi in outs else []  # noqa: E731
+    if inputs is None:
+        return None, [(list(range(n_in)) + extra(learned), learned)]
+    unknown = set(inputs) - set(OUTPUT_NAMES)
+    if unknown:
+        raise ValueError(f"inputs: unknown output(s) {', '.join(sorted(unknown))}; known: {', '.join(OUTPUT_NAMES)}")
+    table = {k: (None if inputs.get(k) is None else list(inputs[k])) for k in OUTPUT_NAMES}
+    branches = []
+    for j, k in enumerate(OUTPUT_NAMES):
+        if k not in learn:
+            continue
+        names = table[k] or list(FEATURE_NAMES)
+        bad = [n for n in names if n not in FEATURE_NAMES]
+        if bad:
+            raise ValueError(f"inputs.{k}: unknown feature(s) {', '.join(bad)}; known: {', '.join(FEATURE_NAMES)}")
+        branches.append(([FEATURE_NAMES.index(n) for n in names] + extra([j]), [j]))
+    return table, branches
+
+
+def _branch_net(n_in: int, hidden: tuple[int, ...], activation: str, n_out: int) -> nn.Sequential:
+    """An MLP ``n_in -> hidden... -> n_out`` whose last layer starts at zero (zero correction)."""
+    layers: list[nn.Module] = []
+    width = n_in
+    for h in hidden:
+        layers += [nn.Linear(width, h), ACTIVATIONS[activation]()]
+        width = h
+    head = nn.Linear(width, n_out)
+    nn.init.zeros_(head.weight)
+    nn.init.zeros_(head.bias)
+    return nn.Sequential(*layers, head)
+
+
 class NeuralClosure(Closure):
     """MLP closure ``state -> FrictionFactors`` (see module docstring for the two modes).
 
@@ -158,11 +208,7 @@ class NeuralClosure(Closure):
             raise ValueError(f"unknown neural closure mode {mode!r}; known: {', '.join(MODES)}")
         if activation not in ACTIVATIONS:
             raise ValueError(f"unknown activation {activation!r}; known: {', '.join(ACTIVATIONS)}")
-        bounds = [float(bound.get(k, 1.0)) for k in OUTPUT_NAMES] if isinstance(bound, dict) else [float(bound)] * 3
-        if isinstance(bound, dict) and set(bound) - set(OUTPUT_NAMES):
-            raise ValueError(f"bound: unknown factor(s) {sorted(set(bound) - set(OUTPUT_NAMES))}; known: {', '.join(OUTPUT_NAMES)}")
-        if min(bounds) <= 0 or direct_span <= 0:
-            raise ValueError(f"bound and direct_span must be positive, got {bound} and {direct_span}")
+        bounds = _factor_bounds(bound, direct_span)
         if baseline is None:
             baseline = BaselineClosure()
         elif isinstance(baseline, dict):
@@ -179,44 +225,22 @@ class NeuralClosure(Closure):
             raise ValueError(f"learn: expected a non-empty subset of {', '.join(OUTPUT_NAMES)}, got {list(learn)}")
         if self.learn != list(OUTPUT_NAMES) and mode != "correction":
             raise ValueError("learn: a subset of the factors needs mode='correction'")
-        learned = [OUTPUT_NAMES.index(k) for k in self.learn]
-        # column n_in of the network input is the baseline input (base_input=True), for f_i branches
-        i_fi = OUTPUT_NAMES.index("f_i")
-        extra = lambda outs: [n_in] if self.base_input and i_fi in outs else []  # noqa: E731
-        if inputs is None:
-            self.inputs = None
-            branches = [(list(range(n_in)) + extra(learned), learned)]
-        else:
-            unknown = set(inputs) - set(OUTPUT_NAMES)
-            if unknown:
-                raise ValueError(f"inputs: unknown output(s) {', '.join(sorted(unknown))}; known: {', '.join(OUTPUT_NAMES)}")
-            self.inputs = {k: (None if inputs.get(k) is None else list(inputs[k])) for k in OUTPUT_NAMES}
-            branches = []
-            for j, k in enumerate(OUTPUT_NAMES):
-                if k not in self.learn:
-                    continue
-                names = self.inputs[k] or list(FEATURE_NAMES)
-                bad = [n for n in names if n not in FEATURE_NAMES]
-                if bad:
-                    raise ValueError(f"inputs.{k}: unknown feature(s) {', '.join(bad)}; known: {', '.join(FEATURE_NAMES)}")
-                branches.append(([FEATURE_NAMES.index(n) for n in names] + extra([j]), [j]))
+        self.inputs, branches = _branch_layout(inputs, self.learn, self.base_input)
         self.branch_inputs = [b[0] for b in branches]
         # per branch: None where it reads every feature in order (no copy), else an index tensor
         self._branch_index = [None if idx == list(range(n_in)) else torch.tensor(idx, dtype=torch.int64)
                               for idx in self.branch_inputs]
         self.branch_outputs = [b[1] for b in branches]
-        self.branches = nn.ModuleList()
-        for idx, outs in branches:
-            layers: list[nn.Module] = []
-            width = len(idx)
-            for h in self.hidden:
-                layers += [nn.Linear(width, h), ACTIVATIONS[activation]()]
-                width = h
-            head = nn.Linear(width, len(outs))
-            nn.init.zeros_(head.weight)
-            nn.init.zeros_(head.bias)
-            self.branches.append(nn.Sequential(*layers, head))
+        self.branches = nn.ModuleList(_branch_net(len(idx), self.hidden, activation, len(outs)) for idx, outs in branches)
         self.double()
+        self._register_buffers(n_in, bounds)
+        #: False for a closure loaded from a bundle written before the measured-data domain existed
+        self.measured_domain_recorded = True
+        self.label = f"neural({mode}, hidden={list(self.hidden)}, {activation})"
+
+    def _register_buffers(self, n_in: int, bounds: list[float]) -> None:
+        """Bounds, feature scaling, reference log-factors and the two domains (training data, and
+        measured data: empty until a fine-tune or update stores its rows' domain)."""
         f64 = dict(dtype=torch.float64)
         self.register_buffer("bound_vec", torch.tensor(bounds, **f64))
         self.register_buffer("feature_mean", torch.zeros(n_in, **f64))
@@ -226,14 +250,10 @@ class NeuralClosure(Closure):
         self.register_buffer("domain_hi", torch.full((n_in,), torch.inf, **f64))
         self.register_buffer("domain_points", torch.zeros(0, n_in, **f64))
         self.register_buffer("domain_threshold", torch.tensor(0.0, **f64))
-        # measured-data domain: empty until a fine-tune or update stores its rows' domain
         self.register_buffer("measured_lo", torch.full((n_in,), torch.inf, **f64))
         self.register_buffer("measured_hi", torch.full((n_in,), -torch.inf, **f64))
         self.register_buffer("measured_points", torch.zeros(0, n_in, **f64))
         self.register_buffer("measured_threshold", torch.tensor(0.0, **f64))
-        #: False for a closure loaded from a bundle written before the measured-data domain existed
-        self.measured_domain_recorded = True
-        self.label = f"neural({mode}, hidden={list(self.hidden)}, {activation})"
 
     # ----------------------------------------------------------------- configuration
     @property
