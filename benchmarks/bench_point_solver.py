@@ -31,7 +31,6 @@ import time
 
 import numpy as np
 import torch
-from scipy.optimize import brentq
 
 from closure_nn.closures.baseline import BaselineClosure
 from closure_nn.physics.conditions import make_conditions
@@ -94,6 +93,8 @@ def peer_residual(h: float, p: dict) -> float:
 
 
 def peer_roots(p: dict, grid: list[float]) -> list[float]:
+    from scipy.optimize import brentq  # here, so that the peak-RSS child (--rss) carries only what a solve needs
+
     ys = [peer_residual(x, p) for x in grid]
     return [brentq(peer_residual, a, b, args=(p,), xtol=1e-12)
             for a, b, ya, yb in zip(grid[:-1], grid[1:], ys[:-1], ys[1:]) if (ya < 0) != (yb < 0)]
