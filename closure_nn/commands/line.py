@@ -9,16 +9,27 @@ Examples::
 ``--closure`` (repeatable) lists the closures marched side by side, in order; without it the
 config's closure (the baseline) and its ``compare`` entries. ``--ensemble DIR`` marches every
 member of an ensemble for the uncertainty band.
+
+Imports are at module level: ``closure-nn line --help`` loads pandas and scipy anyway (its config
+keys are listed with their units), and nothing here loads Lightning.
 """
 from __future__ import annotations
 
 import argparse
 from pathlib import Path
 
+import torch
+from omegaconf import OmegaConf
+
 from ..caution import CAUTION
-from ..config import load_config
+from ..closures.baseline import BaselineClosure
 from ..closures.registry import build_closure, closure_source
+from ..config import load_config
+from ..line.definition import line_from_config
+from ..line.march import MarchSettings
+from ..line.run import run_line, write_line_run
 from ..physics.checks import InputError
+from ..run_folder import make_run_dir
 from .options import CLOSURE_HELP, add_out_option, deprecated, load_members
 from .options import load as load_closure_spec
 
@@ -56,14 +67,35 @@ def _say(text: str) -> None:
 
 
 def run(args: argparse.Namespace, overrides: list[str]) -> int:
-    import torch
-    from omegaconf import OmegaConf
+    cfg, line = _line_and_config(args, overrides)
+    closures, old_spelling = _closures(args, cfg)
+    has_base = any(isinstance(c, BaselineClosure) for c in closures.values())
+    _say(f"closures side by side: {', '.join(closures)}" +
+         ("" if has_base else " (add --closure baseline to compare with the baseline)"))
+    members = []
+    for d in list(cfg.get("ensemble") or []) + list(args.ensemble):
+        members += load_members(str(d))
+    try:
+        settings = MarchSettings(**OmegaConf.to_container(cfg.march))
+    except TypeError as exc:
+        raise InputError(f"march: {exc}") from None
+    torch.set_num_threads(max(1, int(cfg.get("threads", 1))))
+    result = run_line(line, closures, members, solver=dict(cfg.solver), settings=settings, say=_say)
+    run_dir = make_run_dir("line", args.out or cfg.run_root)
+    plot = cfg.plot and not args.no_plot
+    _say(f"writing stations.csv{', band.csv' if members else ''}, summary.json{' and line.png' if plot else ''}")
+    files = write_line_run(result, run_dir, config_yaml=OmegaConf.to_yaml(cfg), plot=plot)
+    _print_summary(result, line)
+    print(f"results: {run_dir} ({', '.join(p.name for p in files.values())})")
+    print(CAUTION)
+    if old_spelling:  # once the run worked: a failure stays one line
+        deprecated("closure=learned closure.path=PATH", f"--closure {old_spelling}")
+    return 0 if not result.failures else 1
 
-    from ..line.definition import line_from_config
-    from ..line.march import MarchSettings
-    from ..line.run import run_line, write_line_run
-    from ..run_folder import make_run_dir
 
+def _line_and_config(args: argparse.Namespace, overrides: list[str]):
+    """conf/line.yaml composed once, with the user's line file (and its ``line.`` overrides) in
+    place of the config's line; returns the config and the :class:`LineDefinition`."""
     line_over = [o for o in overrides if o.startswith("line.")]
     cfg = load_config("line", [o for o in overrides if not o.startswith("line.")] if args.line_file else overrides)
     base_dir = None
@@ -76,7 +108,12 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
             user = OmegaConf.merge(user, OmegaConf.from_dotlist([o[len("line."):] for o in line_over]))
         cfg.line = user
         base_dir = path.parent
-    line = line_from_config(cfg.line, base_dir=base_dir, where=str(args.line_file or "conf line"))
+    return cfg, line_from_config(cfg.line, base_dir=base_dir, where=str(args.line_file or "conf line"))
+
+
+def _closures(args: argparse.Namespace, cfg) -> tuple[dict, str | None]:
+    """The closures marched side by side, by name in order, and the path given in the old
+    spelling ``closure=learned closure.path=PATH`` (None if not used)."""
     closures = {}
     old_spelling = None
     if not args.closure:
@@ -95,24 +132,12 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
         if name in closures:
             raise InputError(f"--closure {item!r}: the name {name!r} is already used; write NAME=PATH")
         closures[name] = _closure_from_spec(spec, cfg)
-    from ..closures.baseline import BaselineClosure
+    return closures, old_spelling
 
-    has_base = any(isinstance(c, BaselineClosure) for c in closures.values())
-    _say(f"closures side by side: {', '.join(closures)}" +
-         ("" if has_base else " (add --closure baseline to compare with the baseline)"))
-    members = []
-    for d in list(cfg.get("ensemble") or []) + list(args.ensemble):
-        members += load_members(str(d))
-    try:
-        settings = MarchSettings(**OmegaConf.to_container(cfg.march))
-    except TypeError as exc:
-        raise InputError(f"march: {exc}") from None
-    torch.set_num_threads(max(1, int(cfg.get("threads", 1))))
-    result = run_line(line, closures, members, solver=dict(cfg.solver), settings=settings, say=_say)
-    run_dir = make_run_dir("line", args.out or cfg.run_root)
-    plot = cfg.plot and not args.no_plot
-    _say(f"writing stations.csv{', band.csv' if members else ''}, summary.json{' and line.png' if plot else ''}")
-    files = write_line_run(result, run_dir, config_yaml=OmegaConf.to_yaml(cfg), plot=plot)
+
+def _print_summary(result, line) -> None:
+    """Per closure: inlet and outlet pressure, pressure drop, liquid inventory, domain and march
+    notes; then the ensemble's range and any failures."""
     summ = result.summary()
     print(f"line {line.name}{' (invented)' if line.invented else ''}: {summ['length_m'] / 1e3:.2f} km, "
           f"{line.boundary} pressure {line.p_boundary / 1e5:.3f} bar given")
@@ -139,8 +164,3 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
               f"liquid {e['liquid_inventory_m3']['min']:.1f}-{e['liquid_inventory_m3']['max']:.1f} m3")
     for name, msg in summ.get("failures", {}).items():
         print(f"  {name}: FAILED - {msg}")
-    print(f"results: {run_dir} ({', '.join(p.name for p in files.values())})")
-    print(CAUTION)
-    if old_spelling:  # once the run worked: a failure stays one line
-        deprecated("closure=learned closure.path=PATH", f"--closure {old_spelling}")
-    return 0 if not result.failures else 1
