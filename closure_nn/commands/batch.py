@@ -4,11 +4,17 @@ Writes ``results.csv`` into a new run folder under ``--out DIR`` (default ./runs
 columns in SI and the results ``calc_*``, each header with its unit (``calc_pgrad [Pa/m]``), a
 plain table that ``pandas.read_csv`` and ``closure-nn check-data`` read. ``--output FILE`` also
 writes the table to FILE (``.csv`` or ``.parquet``).
+
+pandas and the data layer (which loads pandas and scipy) are imported inside :func:`run`, so that
+``closure-nn batch --help`` and argument errors answer without loading them.
 """
 from __future__ import annotations
 
 import argparse
 from pathlib import Path
+
+import torch
+from omegaconf import OmegaConf
 
 from ..caution import CAUTION
 from ..config import load_config
@@ -32,8 +38,6 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace, overrides: list[str]) -> int:
     import pandas as pd
-    import torch
-    from omegaconf import OmegaConf
 
     from ..data.result_tables import drop_result_columns, write_result_csv
     from ..data.schema import to_conditions

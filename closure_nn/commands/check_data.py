@@ -4,11 +4,16 @@ Writes into a new run folder: ``data_si.csv`` (or ``.parquet``) with the accepte
 ``rejected.csv`` (data row, check, reason, values in SI), ``validation_summary.txt``,
 ``summary.json`` (counts) and the resolved ``config.yaml``. Prints a short summary.
 Exit code 0 when at least one row is accepted (and, with ``--strict``, none rejected), else 1.
+
+The data layer (which loads pandas and scipy) is imported inside :func:`run`, so that
+``closure-nn check-data --help`` and argument errors answer without loading it.
 """
 from __future__ import annotations
 
 import argparse
 from pathlib import Path
+
+from omegaconf import OmegaConf
 
 from ..config import load_config
 from ..physics.checks import InputError
@@ -23,8 +28,6 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace, overrides: list[str]) -> int:
-    from omegaconf import OmegaConf
-
     from ..data.table_io import read_table, write_table
     from ..data.validate import REASON_SEP, validate_table
 

@@ -12,6 +12,9 @@ and its pre-training design (``synthetic.parquet``) for the fitting and grid con
 ``--table`` gives the rows (a seeded share held back, ``development.*``) and the design is the
 table's envelope (closure_nn/pipeline/envelope.py). Writes ``distilled.json`` (the closure),
 ``formula.md`` (text, LaTeX, fidelity table), ``fidelity.csv`` and ``distill.json``.
+
+The pipeline and the data layer (Lightning, scipy) are imported inside the functions that use
+them, so that ``closure-nn distill --help`` and argument errors answer without loading them.
 """
 from __future__ import annotations
 
@@ -21,9 +24,14 @@ from pathlib import Path
 
 import pandas as pd
 
+from omegaconf import OmegaConf
+
 from ..caution import CAUTION
+from ..closures.formula import save_formula
+from ..closures.loading import load_saved_closure
 from ..config import load_config
 from ..physics.checks import InputError
+from ..run_folder import atomic_path, make_run_dir, write_json
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -35,8 +43,6 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 def _fit_context(bundle: Path, table: str | None, cfg) -> tuple:
     """(lab rows to fit on, development rows, design conditions, where they came from)."""
-    from omegaconf import OmegaConf
-
     from ..data.synthetic import sample_design
     from ..pipeline.envelope import envelope_design
     from ..pipeline.lab_table import validate_lab
@@ -70,13 +76,8 @@ def _fit_context(bundle: Path, table: str | None, cfg) -> tuple:
 
 
 def run(args: argparse.Namespace, overrides: list[str]) -> int:
-    from omegaconf import OmegaConf
-
-    from ..closures.formula import save_formula
-    from ..closures.loading import load_saved_closure
     from ..data.schema import INPUTS
     from ..pipeline.distill import DistillSettings, baseline_of_closure, distill, fidelity, fidelity_markdown
-    from ..run_folder import atomic_path, make_run_dir, write_json
 
     ov = list(overrides) + ([f"run_root={args.out}"] if args.out else [])
     cfg = load_config("distill", ov)

@@ -8,15 +8,21 @@ Examples (key=value arguments are Hydra overrides of conf/evaluate.yaml)::
 
 Writes a run folder (``run_root``/evaluate-<time>): evaluation.json/.csv, predictions per split,
 parity, residual, training-curve and k-fold figures, the fine-tuning runs, CAUTION.txt.
+
+The evaluation pipeline and its figures (Lightning, pandas, matplotlib) are imported inside
+:func:`run`, so that argument errors answer without loading them.
 """
 from __future__ import annotations
 
 import argparse
 import math
 
+from omegaconf import OmegaConf
+
 from ..caution import CAUTION
 from ..config import load_config, require_complete
 from ..physics.checks import InputError
+from ..run_folder import make_run_dir
 from .options import add_out_option, closure_path, deprecated
 
 
@@ -50,7 +56,8 @@ def summary_lines(report: dict) -> list[str]:
 
 
 def run(args: argparse.Namespace, overrides: list[str]) -> int:
-    from omegaconf import OmegaConf
+    from ..pipeline.evaluate import load_lab, repo_path, run_evaluation
+    from ..report.training_plots import evaluation_figures
 
     cfg = load_config("evaluate", overrides)
     if args.show_config:
@@ -61,9 +68,6 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     if spec == "baseline":
         raise InputError("evaluate --closure baseline: the fine-tune starts from a pre-trained neural closure; "
                          "give its PATH, or leave --closure out to pre-train here")
-    from ..run_folder import make_run_dir
-    from ..pipeline.evaluate import load_lab, repo_path, run_evaluation  # imports Lightning
-
     start = None
     if spec:
         if not repo_path(spec).exists():
@@ -73,8 +77,6 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
         deprecated(f"--bundle {args.bundle}", f"--closure {args.bundle}")
     lab = load_lab(args.lab or cfg.lab)
     run_dir = make_run_dir("evaluate", root=args.out or cfg.run_root, name=cfg.run_name)
-    from ..report.training_plots import evaluation_figures
-
     report = run_evaluation(cfg, lab, start, run_dir, figures=evaluation_figures)
     report.pop("_kept", None)
     print("\n".join(summary_lines(report)))

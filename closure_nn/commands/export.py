@@ -12,7 +12,15 @@ import argparse
 from pathlib import Path
 
 from ..caution import CAUTION
+from ..closures.bundle import export_plain
+from ..closures.ensemble import ClosureEnsemble
+from ..closures.export_onnx import (INPUT_DESCRIPTION, OUTPUT_DESCRIPTION, check_exportable, check_onnx,
+                                    export_onnx)
+from ..closures.loading import load_saved_closure
+from ..closures.neural import NeuralClosure
 from ..physics.checks import InputError
+from ..physics.groups import FEATURE_NAMES
+from ..run_folder import make_run_dir, write_json
 
 FORMATS = ("onnx", "json")
 ENSEMBLE_RULE = "f_k = exp(mean over members of ln f_k,member): the geometric mean of the members' factors"
@@ -26,15 +34,6 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace, overrides: list[str]) -> int:
-    from ..closures.bundle import export_plain
-    from ..closures.loading import load_saved_closure
-    from ..closures.ensemble import ClosureEnsemble
-    from ..closures.export_onnx import (INPUT_DESCRIPTION, OUTPUT_DESCRIPTION, check_exportable, check_onnx,
-                                           export_onnx)
-    from ..closures.neural import NeuralClosure
-    from ..physics.groups import FEATURE_NAMES
-    from ..run_folder import make_run_dir, write_json
-
     fmt = str(args.format).lower()
     if fmt not in FORMATS:
         raise InputError(f"--format {args.format!r}: expected one of {', '.join(FORMATS)}")

@@ -10,8 +10,8 @@ Examples::
 config's closure (the baseline) and its ``compare`` entries. ``--ensemble DIR`` marches every
 member of an ensemble for the uncertainty band.
 
-Imports are at module level: ``closure-nn line --help`` loads pandas and scipy anyway (its config
-keys are listed with their units), and nothing here loads Lightning.
+The line calculation (closure_nn.line, which loads pandas and scipy) is imported inside :func:`run`,
+so that argument errors answer without loading them; nothing here loads Lightning.
 """
 from __future__ import annotations
 
@@ -25,9 +25,6 @@ from ..caution import CAUTION
 from ..closures.baseline import BaselineClosure
 from ..closures.registry import build_closure, closure_source
 from ..config import load_config
-from ..line.definition import line_from_config
-from ..line.march import MarchSettings
-from ..line.run import run_line, write_line_run
 from ..physics.checks import InputError
 from ..run_folder import make_run_dir
 from .options import CLOSURE_HELP, add_out_option, deprecated, load_members
@@ -67,7 +64,12 @@ def _say(text: str) -> None:
 
 
 def run(args: argparse.Namespace, overrides: list[str]) -> int:
-    cfg, line = _line_and_config(args, overrides)
+    from ..line.definition import line_from_config
+    from ..line.march import MarchSettings
+    from ..line.run import run_line, write_line_run
+
+    cfg, base_dir = _config(args, overrides)
+    line = line_from_config(cfg.line, base_dir=base_dir, where=str(args.line_file or "conf line"))
     closures, old_spelling = _closures(args, cfg)
     has_base = any(isinstance(c, BaselineClosure) for c in closures.values())
     _say(f"closures side by side: {', '.join(closures)}" +
@@ -93,9 +95,9 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     return 0 if not result.failures else 1
 
 
-def _line_and_config(args: argparse.Namespace, overrides: list[str]):
+def _config(args: argparse.Namespace, overrides: list[str]):
     """conf/line.yaml composed once, with the user's line file (and its ``line.`` overrides) in
-    place of the config's line; returns the config and the :class:`LineDefinition`."""
+    place of the config's line; returns the config and the folder of the line file (or None)."""
     line_over = [o for o in overrides if o.startswith("line.")]
     cfg = load_config("line", [o for o in overrides if not o.startswith("line.")] if args.line_file else overrides)
     base_dir = None
@@ -108,7 +110,7 @@ def _line_and_config(args: argparse.Namespace, overrides: list[str]):
             user = OmegaConf.merge(user, OmegaConf.from_dotlist([o[len("line."):] for o in line_over]))
         cfg.line = user
         base_dir = path.parent
-    return cfg, line_from_config(cfg.line, base_dir=base_dir, where=str(args.line_file or "conf line"))
+    return cfg, base_dir
 
 
 def _closures(args: argparse.Namespace, cfg) -> tuple[dict, str | None]:

@@ -7,14 +7,27 @@ resolved config into a run folder. With ``--bands`` (needs ``--data``) also ``pa
 every row of the table, one panel per inclination band, each observation solved at its own
 conditions by the drawn closure, with its score per band (``band_scores`` in summary.json;
 closure_nn.report.pattern_bands).
+
+pandas and the data layer (which loads pandas and scipy) are imported inside :func:`run`, so that
+``closure-nn map --help`` and argument errors answer without loading them.
 """
 from __future__ import annotations
 
 import argparse
 import math
 
+import numpy as np
+from omegaconf import OmegaConf
+
 from ..caution import CAUTION
+from ..closures.registry import build_closure
 from ..config import load_config
+from ..physics.checks import InputError, check_conditions
+from ..physics.conditions import make_conditions
+from ..physics.vocabulary import PATTERNS
+from ..report.pattern_bands import band_accuracy, plot_pattern_bands
+from ..report.pattern_map import compute_pattern_map, disagreement, plot_pattern_map
+from ..run_folder import make_run_dir, write_json
 from .options import CLOSURE_HELP, add_closure_option, add_out_option, deprecated, load
 
 
@@ -30,24 +43,17 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace, overrides: list[str]) -> int:
-    import numpy as np
     import pandas as pd
-    from omegaconf import OmegaConf
 
-    from ..closures.registry import build_closure
     from ..data.result_tables import write_result_csv
-    from ..physics.vocabulary import PATTERNS
-    from ..report.pattern_map import compute_pattern_map, disagreement, plot_pattern_map
-    from ..run_folder import make_run_dir, write_json
+    from ..data.table_io import read_table
+    from ..data.validate import validate_table
 
     cfg = load_config("map", overrides)
     fluids = {k: _number(v, f"fluids.{k}") for k, v in OmegaConf.to_container(cfg.fluids, resolve=True).items()}
     kw = dict(D=_number(cfg.D, "D"), theta_deg=_number(cfg.theta_deg, "theta_deg"), fluids=fluids,
               roughness=_number(cfg.roughness, "roughness"), vsl=_axis(cfg.vsl, "vsl"), vsg=_axis(cfg.vsg, "vsg"),
               n=_count(cfg.n), solver=dict(cfg.solver))
-    from ..physics.checks import check_conditions
-    from ..physics.conditions import make_conditions
-
     check_conditions(make_conditions(vsl=list(cfg.vsl), vsg=list(cfg.vsg), D=kw["D"], theta=math.radians(kw["theta_deg"]),
                                      roughness=kw["roughness"], **fluids), where="map config")
     spec, old = args.closure, None
@@ -59,14 +65,9 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     base = compute_pattern_map(base_closure, **kw)
     other = compute_pattern_map(other_closure, **kw) if other_closure is not None else None
     if args.bands and not args.data:
-        from ..physics.checks import InputError
-
         raise InputError("map --bands scores observations per inclination band: give the table with --data FILE")
     data, note, df = None, "", None
     if args.data:
-        from ..data.table_io import read_table
-        from ..data.validate import validate_table
-
         val = validate_table(read_table(args.data), path=args.data)
         df = val.clean
         near = ((df["D"] / kw["D"] - 1).abs() <= float(cfg.data_D_rel)) & \
@@ -101,8 +102,6 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
 
 def _bands(closure, df, run_dir, kw: dict, source: str) -> list[dict]:
     """Band figure and scores of every row of ``df`` (closure_nn.report.pattern_bands)."""
-    from ..report.pattern_bands import band_accuracy, plot_pattern_bands
-
     fluids = {k: v for k, v in kw["fluids"].items() if k not in df}
     data = df.assign(**fluids) if fluids else df
     scores = band_accuracy(closure, data, solver=kw["solver"])
@@ -115,8 +114,6 @@ def _bands(closure, df, run_dir, kw: dict, source: str) -> list[dict]:
 
 def _number(value, key: str) -> float:
     """``value`` of the map config as a float, else InputError naming the key."""
-    from ..physics.checks import InputError
-
     try:
         return float(value)
     except (TypeError, ValueError):
@@ -125,8 +122,6 @@ def _number(value, key: str) -> float:
 
 def _axis(value, key: str) -> tuple[float, float]:
     """An axis range ``[low, high]`` [m/s] with 0 < low < high."""
-    from ..physics.checks import InputError
-
     vals = [_number(v, key) for v in (value if not isinstance(value, (str, int, float)) else [value])]
     if len(vals) != 2 or not 0 < vals[0] < vals[1]:
         raise InputError(f"config map: {key} = {vals}; expected [low, high] in m/s with 0 < low < high "
@@ -136,8 +131,6 @@ def _axis(value, key: str) -> tuple[float, float]:
 
 def _count(value) -> int:
     """Grid points per axis: a whole number >= 2."""
-    from ..physics.checks import InputError
-
     if isinstance(value, bool) or not isinstance(value, int) or value < 2:
         raise InputError(f"config map: n = {value!r}; expected a whole number >= 2 (grid points per axis)")
     return value

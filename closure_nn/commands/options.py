@@ -18,6 +18,7 @@ import argparse
 import sys
 from pathlib import Path
 
+from ..api import load_closure
 from ..closures.formula import is_formula_file
 from ..closures.registry import build_closure, closure_source
 from ..physics.checks import InputError
@@ -72,8 +73,6 @@ def closure_path(spec: str | Path) -> Path:
 
 def load(spec: str | Path):
     """The closure ``spec`` names: ``'baseline'`` or a PATH (see :func:`closure_path`)."""
-    from ..api import load_closure
-
     if str(spec) == BASELINE:
         return load_closure(BASELINE)
     return load_closure(closure_path(spec))

@@ -10,15 +10,23 @@ YAML of our own (closure_nn/pipeline/plan.py, ``read_envelope``); ``--data`` (a 
 draws the existing rows on the map - the distance from the measured data uses the domain the
 members store. Writes ``test_matrix.csv`` (the chosen points, ranked, in the rig's units),
 ``candidates.csv``, ``plan_map.png`` and ``plan.json``.
+
+The pipeline, its map and pandas (Lightning, pandas, matplotlib) are imported inside the functions
+that use them, so that ``closure-nn plan --help`` and argument errors answer without loading them.
 """
 from __future__ import annotations
 
 import argparse
 from pathlib import Path
 
+import numpy as np
+from omegaconf import OmegaConf
+
 from ..caution import CAUTION
+from ..closures.loading import load_saved_closure
 from ..config import load_config
 from ..physics.checks import InputError
+from ..run_folder import atomic_path, make_run_dir, write_json
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -31,7 +39,6 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 def test_matrix(chosen):
     """The chosen points in the rig's units, ranked, with the reasons."""
-    import numpy as np
     import pandas as pd
 
     return pd.DataFrame({
@@ -47,12 +54,9 @@ def test_matrix(chosen):
 
 
 def run(args: argparse.Namespace, overrides: list[str]) -> int:
-    from omegaconf import OmegaConf
-
-    from ..closures.loading import load_saved_closure
     from ..pipeline.plan import PlanSettings, plan, read_envelope
+    from ..pipeline.lab_table import validate_lab
     from ..report.plan_plots import plan_map
-    from ..run_folder import atomic_path, make_run_dir, write_json
 
     ov = list(overrides) + ([f"run_root={args.out}"] if args.out else [])
     if args.n is not None:
@@ -66,8 +70,6 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     ens = load_saved_closure(args.ensemble)
     data = None
     if args.data:
-        from ..pipeline.lab_table import validate_lab
-
         data = validate_lab(args.data).rows
     c = OmegaConf.to_container(cfg, resolve=True)
     settings = PlanSettings(n=c["n"], candidates=c["candidates"], seed=c["seed"], weights=c["weights"],

@@ -4,11 +4,15 @@ from __future__ import annotations
 import argparse
 import math
 
+import torch
+
 from ..caution import CAUTION
 from ..config import load_config
-from ..physics.checks import check_conditions
+from ..fluid_properties import named_fluid
+from ..physics.checks import InputError, check_conditions
 from ..physics.conditions import gas_density, make_conditions
 from ..physics.point import solve_points
+from ..run_folder import dumps_json
 from .options import add_closure_option, chosen_closure
 
 AIR_MOLAR_MASS = 0.0289647  # kg/mol, dry air (e.g. Lemmon et al. 2000, J. Phys. Chem. Ref. Data 29:331)
@@ -36,14 +40,9 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace, overrides: list[str]) -> int:
-    import torch
-
     cfg = load_config("point", overrides)
     rhog, mug = args.rhog, args.mug
     if args.gas_fluid:
-        from ..fluid_properties import named_fluid
-        from ..physics.checks import InputError
-
         if args.p is None:
             raise InputError("--gas-fluid needs --p (absolute pressure, Pa) and --T (K)")
         props = named_fluid(args.gas_fluid, args.p, args.T)
@@ -59,8 +58,6 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
         res = solve_points(cond, closure, **dict(cfg.solver))
     cols = {k: (v[0].item() if hasattr(v[0], "item") else v[0]) for k, v in res.to_columns().items()}
     if args.json:
-        from ..run_folder import dumps_json
-
         print(dumps_json({"closure": closure.label, **cols, "caution": CAUTION}))  # strict JSON: a missing root is null
         return 0
     roots = [f"{cols[f'root_{k}']:.4f}" for k in (1, 2, 3) if cols[f"root_{k}"] == cols[f"root_{k}"]]

@@ -10,12 +10,18 @@ new run folder:
 * ``config.yaml``: the resolved config; ``CAUTION.txt``.
 
 Never imports Lightning (the data layer and the physics only).
+
+The data layer (which loads pandas and scipy) is imported inside :func:`run`, so that
+``closure-nn synth --help`` and argument errors answer without loading it.
 """
 from __future__ import annotations
 
 import argparse
 
+from omegaconf import OmegaConf
+
 from ..caution import CAUTION
+from ..closures.registry import build_closure
 from ..config import load_config
 from ..physics.checks import InputError
 from ..run_folder import make_run_dir, write_json
@@ -28,9 +34,6 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace, overrides: list[str]) -> int:
-    from omegaconf import OmegaConf
-
-    from ..closures.registry import build_closure
     from ..data.design_space import parse_design
     from ..data.synthetic import synthesize
     from ..data.table_io import write_table

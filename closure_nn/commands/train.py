@@ -9,15 +9,22 @@ Examples (key=value arguments are Hydra overrides)::
 
 ``--sweep`` runs Hydra's multirun (closure_nn.training.sweep): one job per combination of the
 comma-separated values, each in its own folder under <run_root>/sweep-<time>/, and a summary table.
+
+Lightning (closure_nn.training.run) is imported inside :func:`run`, so that argument errors answer
+without loading it.
 """
 from __future__ import annotations
 
 import argparse
 from pathlib import Path
 
+from omegaconf import OmegaConf
+
 from ..caution import CAUTION
 from ..config import load_config, require_complete
+from ..config_checks import RESUME_SAFE, changed_keys, check_config, check_keys, flat_keys, show
 from ..physics.checks import InputError
+from ..training.sweep import check_jobs, plan, run_sweep
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -36,10 +43,6 @@ def _config(overrides: list[str]):
     :data:`closure_nn.config_checks.RESUME_SAFE` (more epochs, progress bar, threads). The saved
     config.yaml is not rewritten (closure_nn.training.run.run_stage).
     """
-    from omegaconf import OmegaConf
-
-    from ..config_checks import RESUME_SAFE, changed_keys, check_config, check_keys, flat_keys, show
-
     resume = [o.split("=", 1)[1] for o in overrides if o.startswith("resume=")]
     if not resume:
         return load_config("train", overrides)
@@ -65,8 +68,6 @@ def _config(overrides: list[str]):
 
 def _sweep(args: argparse.Namespace, overrides: list[str]) -> int:
     """Plan the jobs, check every job's config, then hand the overrides to the Hydra app."""
-    from ..training.sweep import check_jobs, plan, run_sweep
-
     jobs = plan(overrides)
     if jobs is None:
         print("sweep: the jobs are chosen by the configured sweeper")
@@ -83,8 +84,6 @@ def _sweep(args: argparse.Namespace, overrides: list[str]) -> int:
 
 
 def run(args: argparse.Namespace, overrides: list[str]) -> int:
-    from omegaconf import OmegaConf
-
     if args.sweep:
         return _sweep(args, overrides)
     cfg = _config(overrides)
@@ -92,7 +91,7 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
         print(OmegaConf.to_yaml(cfg))
         return 0
     require_complete(cfg, "train")
-    from ..training.run import train  # imports Lightning
+    from ..training.run import train
 
     m = train(cfg, say=print)
     print(f"stage {m['stage']}: run folder {m['run_dir']}")
