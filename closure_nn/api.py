@@ -7,17 +7,23 @@
 writes (``calc_holdup``, ``calc_pgrad``, ...), so a table from either path reads the same.
 
 Both are re-exported by the package: ``from closure_nn import load_closure, solve``.
+
+pandas and the data layer (which loads pandas and scipy) are imported inside :func:`solve`: every
+``closure-nn`` command imports this package, and most never need them.
 """
 from __future__ import annotations
 
 import os
 from typing import TYPE_CHECKING
 
+import torch
+
 from .caution import CAUTION
 from .closures.base import Closure
 from .closures.baseline import BaselineClosure
 from .closures.loading import load_saved_closure
-from .physics.checks import InputError
+from .physics.checks import InputError, check_conditions
+from .physics.point import solve_points
 
 if TYPE_CHECKING:  # pandas is imported when solve runs, not with the package
     import pandas as pd
@@ -110,11 +116,8 @@ def solve(df: "pd.DataFrame", closure: str | os.PathLike | Closure = BASELINE, s
     True
     """
     import pandas as pd
-    import torch
 
     from .data.schema import to_conditions
-    from .physics.checks import check_conditions
-    from .physics.point import solve_points
 
     if not isinstance(df, pd.DataFrame):
         raise InputError(f"solve: expected a pandas DataFrame of conditions, got {type(df).__name__}")

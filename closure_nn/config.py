@@ -1,8 +1,15 @@
-"""Compose the Hydra configs in conf/ with ``key=value`` overrides (no Hydra app, no chdir)."""
+"""Compose the Hydra configs in conf/ with ``key=value`` overrides (no Hydra app, no chdir).
+
+Hydra is imported inside :func:`load_config`, when a config is composed: the CLI imports this
+module for every command line, and ``closure-nn --help`` and argument errors never compose one.
+"""
 from __future__ import annotations
 
 import os
 from pathlib import Path
+
+from omegaconf import OmegaConf
+from omegaconf.errors import MissingMandatoryValue, OmegaConfBaseException
 
 from .config_checks import check_config, override_error
 from .config_location import CONF_DIR, CONFIG_DIR_ENV
@@ -22,7 +29,6 @@ def load_config(name: str, overrides: list[str] | tuple[str, ...] = (), config_d
     """
     from hydra import compose, initialize_config_dir
     from hydra.errors import HydraException
-    from omegaconf.errors import OmegaConfBaseException
 
     if not (CONF_DIR / f"{name}.yaml").exists():
         raise InputError(f"no config {name!r} in {CONF_DIR}")
@@ -48,9 +54,6 @@ def load_config(name: str, overrides: list[str] | tuple[str, ...] = (), config_d
 
 def require_complete(cfg, name: str) -> None:
     """Raise :class:`InputError` naming the first ``???`` value a user still has to give."""
-    from omegaconf import OmegaConf
-    from omegaconf.errors import MissingMandatoryValue
-
     try:
         OmegaConf.to_container(cfg, resolve=True, throw_on_missing=True)
     except MissingMandatoryValue as exc:

@@ -23,6 +23,9 @@ import re
 from collections.abc import Callable, Iterable, Mapping
 from pathlib import Path
 
+from omegaconf import OmegaConf
+from omegaconf.errors import OmegaConfBaseException
+
 from .config_rule_types import MapOf, Number, Opaque, Rule, _is_number, _registry, show
 from .config_location import CONF_DIR
 from .config_rules import RESUME_SAFE, RULES
@@ -175,9 +178,6 @@ def check_config(cfg, name: str, config_dir: str | Path | None = None) -> None:
     """Check every value of the composed config ``cfg`` of ``conf/<name>.yaml`` against
     :data:`RULES`; raise :class:`InputError` with one line for the first bad value or unknown key.
     ``???`` values are left to :func:`closure_nn.config.require_complete`."""
-    from omegaconf import OmegaConf
-    from omegaconf.errors import OmegaConfBaseException
-
     table = RULES.get(name)
     if table is None:
         return
@@ -230,7 +230,6 @@ def override_error(name: str, overrides: Iterable[str], exc: Exception, config_d
             base = compose(others)
         except Exception:  # another override is bad too: fall back to the defaults
             base = compose([])
-        from omegaconf import OmegaConf
 
         known = flat_keys(OmegaConf.to_container(base, resolve=False))
         parent = key.rsplit(".", 1)[0] if "." in key else ""
@@ -251,8 +250,6 @@ def override_error(name: str, overrides: Iterable[str], exc: Exception, config_d
 
 def _other_group_hint(key: str, config_dir) -> str:
     """' (closure.path is a key of closure=learned)' when another option of the group has the key."""
-    from omegaconf import OmegaConf
-
     group, _, rest = key.partition(".")
     if not rest:
         return ""

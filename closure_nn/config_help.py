@@ -14,6 +14,9 @@ files it builds on (``- train`` in conf/fit.yaml), and the few keys of group fil
 
 >>> "data.train" in config_epilog("train") and "trainer.max_epochs" in config_epilog("train")
 True
+
+Hydra and the data layer (pandas, scipy) are imported inside the functions that compose a config
+or list units: this module runs for ``--help``, which should not load more than it shows.
 """
 from __future__ import annotations
 
@@ -22,7 +25,9 @@ import textwrap
 from dataclasses import dataclass
 from pathlib import Path
 
-from .config import CONF_DIR
+from omegaconf import OmegaConf
+
+from .config import CONF_DIR, load_config
 
 #: command -> the config it composes (commands without a config have no entry)
 CONFIG_OF: dict[str, str] = {
@@ -207,8 +212,6 @@ def split_unit(comment: str) -> tuple[str, str]:
 
 
 def _value_text(cfg, key: str) -> str:
-    from omegaconf import OmegaConf
-
     try:
         node = OmegaConf.select(cfg, key, throw_on_missing=True)
     except Exception:  # '???' (a value the user must give) or an interpolation that cannot resolve yet
@@ -228,8 +231,6 @@ def _value_text(cfg, key: str) -> str:
 def config_epilog(command_or_config: str, width: int = WIDTH) -> str:
     """The help text of a command's main config keys (see the module docstring); '' for a
     command without a config."""
-    from .config import load_config
-
     name = CONFIG_OF.get(command_or_config, command_or_config)
     if not (CONF_DIR / f"{name}.yaml").exists():
         return ""

@@ -4,6 +4,9 @@ CoolProp (Bell, Wronski, Quoilin & Lemort 2014, Ind. Eng. Chem. Res. 53(6):2498-
 density, viscosity and compressibility of pure fluids and predefined mixtures from reference
 equations of state. This module is a thin, scalar-friendly wrapper used at the edges (CLI,
 line definitions, data preparation); the physics core only sees the resulting numbers.
+
+CoolProp is optional: it is imported inside the functions that call it, so closure_nn works
+without it and only a line or point that names a CoolProp fluid needs it.
 """
 from __future__ import annotations
 

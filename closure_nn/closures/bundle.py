@@ -32,9 +32,12 @@ import platform
 import shutil
 import time
 import uuid
+from importlib.metadata import version
 from pathlib import Path
 
+import numpy
 import torch
+import torch.nn as nn
 
 from ..caution import CAUTION
 from ..run_folder import write_json
@@ -65,11 +68,7 @@ def _sha256(path: Path) -> str:
 
 def versions() -> dict[str, str]:
     """Versions of the packages a bundle was written with."""
-    import numpy
-
     try:
-        from importlib.metadata import version
-
         own = version("closure-nn")
     except Exception:  # not installed as a distribution
         own = "unknown"
@@ -246,8 +245,6 @@ def export_plain(closure: NeuralClosure, path: str | os.PathLike) -> Path:
     ``[lo, hi]`` and the Euclidean distance from z to the nearest of ``points`` is at most
     ``threshold``; with no points every state is outside.
     """
-    import torch.nn as nn
-
     branches = []
     for branch, idx, outs in zip(closure.branches, closure.branch_inputs, closure.branch_outputs):
         layers = [{"W": m.weight.detach().tolist(), "b": m.bias.detach().tolist()} for m in branch if isinstance(m, nn.Linear)]

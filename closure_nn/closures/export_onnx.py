@@ -45,6 +45,9 @@ graph per member (the ensemble's factors are the geometric mean of its members',
 
 The ONNX model metadata (``metadata_props``) holds the format name, feature names, output
 names, the baseline, the closure label and the caution.
+
+onnx, onnxscript and onnxruntime are optional and heavy: they are imported inside the functions
+that export or check a graph, so the rest of closure_nn works without them.
 """
 from __future__ import annotations
 

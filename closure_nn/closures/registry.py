@@ -6,6 +6,7 @@ from collections.abc import Mapping
 from ..physics.checks import InputError
 from .base import Closure
 from .baseline import BaselineClosure
+from .loading import load_saved_closure
 
 
 #: where a closure config's closure comes from (the key ``source`` of conf/closure/*.yaml)
@@ -36,7 +37,5 @@ def build_closure(cfg: Mapping) -> Closure:
         except ValueError as exc:
             raise InputError(f"closure: {exc}") from None
     if kind == "bundle":
-        from .loading import load_saved_closure  # torch is imported only for a saved closure
-
         return load_saved_closure(cfg["path"])
     raise InputError(f"closure.source = {kind!r}; expected 'baseline' or 'bundle'")

@@ -57,7 +57,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
+from omegaconf import DictConfig, ListConfig, OmegaConf
 
+from ..config_checks import check_keys
 from ..physics.checks import InputError
 from .schema import COLUMN, INPUTS, fill_gas_density
 from .units import to_si
@@ -144,11 +146,7 @@ class Law:
 
 
 def _plain(cfg: object) -> object:
-    """Plain Python containers from a DictConfig/ListConfig (no Hydra import needed for dicts)."""
-    try:
-        from omegaconf import DictConfig, ListConfig, OmegaConf
-    except ImportError:  # pragma: no cover - omegaconf ships with hydra-core
-        return cfg
+    """Plain Python containers from a DictConfig/ListConfig."""
     if isinstance(cfg, (DictConfig, ListConfig)):
         return OmegaConf.to_container(cfg, resolve=True)
     return cfg
@@ -191,9 +189,7 @@ def parse_law(spec: object, where: str, unit: str | None = None, dimension: str 
     (0.05, 0.1)
     """
     if isinstance(spec, Mapping):
-        from ..config_checks import check_keys  # e.g. 'unti: mm' would silently mean SI
-
-        check_keys(spec, LAW_KEYS, where)
+        check_keys(spec, LAW_KEYS, where)  # e.g. 'unti: mm' would silently mean SI
         unit = spec.get("unit", unit)
         kind = spec.get("law", "fixed" if "value" in spec else None)
     elif isinstance(spec, (list, tuple)):
@@ -353,9 +349,7 @@ def parse_design(cfg: Mapping) -> DesignSpace:
         raise InputError(f"design {name}: value(s) required but not given (??? in the YAML): "
                          f"{', '.join(missing)}; give them as overrides, e.g. {missing[0]}=<value>")
     where = f"design {name}"
-    from ..config_checks import check_keys  # unknown names: the nearest valid one
-
-    check_keys(c, DESIGN_KEYS, where)
+    check_keys(c, DESIGN_KEYS, where)  # unknown names: the nearest valid one
     variables = c.get("variables") or {}
     check_keys(variables, VARIABLES, f"{where}.variables", what="variable")
     laws = {k: parse_law(v, f"{where}.variables.{k}", dimension=COLUMN[k].dimension) for k, v in variables.items()}

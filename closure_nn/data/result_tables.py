@@ -17,8 +17,9 @@ from pathlib import Path
 
 import pandas as pd
 
+from ..run_folder import atomic_path
 from .schema import COLUMN
-from .units import parse_header
+from .units import ALIASES, UNITS, parse_header
 
 #: unit and dimension (a table of :data:`closure_nn.data.units.UNITS`) of result-only columns
 RESULT_UNITS: dict[str, tuple[str, str]] = {
@@ -69,8 +70,6 @@ def unit_of(column: str) -> tuple[str, str] | None:
 
 def _is_unit_word(word: str) -> bool:
     """True for a unit spelling (``deg``, ``bar``, ``mm``...) of :mod:`closure_nn.data.units`."""
-    from .units import ALIASES, UNITS
-
     return word in ALIASES or any(word in units for units in UNITS.values())
 
 
@@ -94,8 +93,6 @@ def with_unit_headers(df: pd.DataFrame) -> pd.DataFrame:
 def write_result_csv(df: pd.DataFrame, path: str | os.PathLike) -> Path:
     """Write ``df`` (SI) as a plain CSV with unit headers (Parquet where ``path`` ends in
     ``.parquet``), atomically; returns the path."""
-    from ..run_folder import atomic_path
-
     p = Path(path)
     with atomic_path(p) as tmp:  # never half a results file
         if p.suffix.lower() == ".parquet":

@@ -37,9 +37,10 @@ import pandas as pd
 import torch
 
 from ..physics import checks as _checks
-from ..physics.checks import POSITIVE, RANGES, check_conditions
+from ..physics.checks import POSITIVE, RANGES, InputError, check_conditions
 from ..physics.conditions import Conditions, gas_density, make_conditions
 from ..physics.vocabulary import PATTERNS
+from .units import UNITS
 
 ROLES = ("input", "gas_state", "target", "uncertainty", "provenance", "solver")
 
@@ -176,8 +177,6 @@ def to_conditions(df: pd.DataFrame, check: bool = True, where: str = "") -> Cond
     >>> tuple(c.shape), round(float(c.rhog[0]), 3)
     ((1,), 1.225)
     """
-    from ..physics.checks import InputError
-
     where = where or str(df.attrs.get("path", ""))
     loc = f"{where}: " if where else ""
     missing = [n for n in INPUTS if n not in df and not (n == "rhog" and can_compute_rhog(df.columns))]
@@ -211,8 +210,6 @@ def glossary_markdown(roles: tuple[str, ...] = ROLES) -> str:
     |---|---|---|---|---|---|
     | `n_roots` | - | solver | number of stratified equilibrium roots (synthetic sets) | 0 - 10 | - |
     """
-    from .units import UNITS
-
     lines = ["| column | unit | role | meaning | accepted range (SI) | header units |", "|---|---|---|---|---|---|"]
     for c in COLUMNS:
         if c.role not in roles:

@@ -30,6 +30,7 @@ import numpy as np
 import pandas as pd
 import torch
 from scipy.stats import qmc
+from tqdm import tqdm
 
 from ..physics.point import FLAG_ANNULAR_NO_ROOT, FLAG_MULTIPLE_ROOTS, FLAG_NO_SEPARATED_ROOT, solve_points
 from ..physics.vocabulary import PATTERNS
@@ -69,8 +70,6 @@ def solve_table(df: pd.DataFrame, closure, solver: Mapping | None = None, chunk:
     pattern and n_roots (index of ``df``), and the solver bit flags ``(n,)`` int64.
     Raises :class:`~closure_nn.physics.checks.InputError` for out-of-range inputs.
     """
-    from tqdm import tqdm
-
     if chunk < 1:
         raise ValueError(f"chunk must be >= 1, got {chunk}")
     cond = to_conditions(df, check=True)

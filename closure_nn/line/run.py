@@ -15,18 +15,25 @@ Measured-data check: likewise with ``in_measured_domain(features)`` (a neural cl
 its fine-tune/update rows, see :mod:`closure_nn.closures.neural`): stations outside it are where
 the learned correction rests on synthetic baseline points only (or on nothing). Reported as
 ``out_of_measured_domain`` in the summary and ``in_measured_domain`` in ``stations.csv``.
+
+The figure writer (closure_nn.report.line_plots, a layer above) is imported inside
+:func:`write_line_run`, only when a plot is asked for.
 """
 from __future__ import annotations
 
+import time
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 import torch
 
 from ..caution import CAUTION
+from ..data.result_tables import write_result_csv
 from ..physics.checks import check_conditions
+from ..run_folder import atomic_write_text, write_json
 from .definition import LineDefinition
 from .fluid import GasModel
 from .local import LocalSolver, Mesh
@@ -57,8 +64,6 @@ class LineRun:
 
     def stations(self):
         """All marches in one long per-station table."""
-        import pandas as pd
-
         frames = [station_table(r, name, "compare", self.in_domain.get(name), self.in_measured.get(name))
                   for name, r in self.results.items()]
         frames += [station_table(r, f"member_{i}", "member", self.in_domain.get(f"member_{i}"),
@@ -119,8 +124,6 @@ def run_line(line: LineDefinition, closures: Mapping[str, object], ensemble: Seq
     ``ensemble``. A closure whose march fails is reported in ``failures`` (or raised when
     ``raise_errors``). ``say``: called with one progress line per march (before it starts and
     when it ends)."""
-    import time
-
     settings = settings or MarchSettings()
     gas = GasModel(line.fluid, (float(line.T.min()), float(line.T.max())))
     local = LocalSolver(line, gas, dict(solver or {}))
@@ -161,9 +164,6 @@ def run_line(line: LineDefinition, closures: Mapping[str, object], ensemble: Seq
 def write_line_run(run: LineRun, run_dir: str | Path, config_yaml: str | None = None, plot: bool = True) -> dict[str, Path]:
     """Write stations.csv, band.csv (if an ensemble ran), summary.json, line.png and CAUTION.txt
     into ``run_dir``. The CSVs are plain tables with the SI unit in each header (``p [Pa]``)."""
-    from ..data.result_tables import write_result_csv
-    from ..run_folder import atomic_write_text, write_json
-
     d = Path(run_dir)
     files = {}
     st = run.stations()

@@ -7,9 +7,13 @@ Figures (our own layout and colours):
 * ``measured_vs_closure.png`` - measured against closure holdup and pgrad, suspects marked;
 * ``multiple_roots.png`` - number of stratified equilibrium roots over v_SG x v_SL per inclination,
   zoomed to where the equation has several roots.
+
+matplotlib is imported inside the drawing functions (with the file-only Agg backend): commands
+that do not draw never load it, and importing this module never switches a user's backend.
 """
 from __future__ import annotations
 
+import textwrap
 from pathlib import Path
 
 import numpy as np
@@ -36,8 +40,6 @@ def _plt():
 
 
 def _foot(fig, text: str = CAUTION) -> None:
-    import textwrap
-
     fig.text(0.01, 0.005, "\n".join(textwrap.wrap(text, 180)), fontsize=6.5, color="#555555", va="bottom")
 
 

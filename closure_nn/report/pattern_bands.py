@@ -8,6 +8,9 @@ map (:func:`closure_nn.report.pattern_map.compute_pattern_map`) at the band's me
 diameter, filled; the band's observations by observed pattern (the markers of
 :data:`closure_nn.report.pattern_map.MARKERS`); a black ring around each observation the closure
 gets wrong at its own conditions; the band's score in the panel title; the caution as a footnote.
+
+matplotlib is imported inside the drawing functions (with the file-only Agg backend): commands
+that do not draw never load it, and importing this module never switches a user's backend.
 """
 from __future__ import annotations
 

@@ -14,6 +14,9 @@ pattern palette (:data:`closure_nn.report.line_plots.PATTERN_COLOURS`).
 
 Observed patterns per inclination band (scores and one panel per band):
 :mod:`closure_nn.report.pattern_bands`.
+
+matplotlib is imported inside the drawing functions (with the file-only Agg backend): commands
+that do not draw never load it, and importing this module never switches a user's backend.
 """
 from __future__ import annotations
 

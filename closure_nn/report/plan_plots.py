@@ -1,4 +1,8 @@
-"""Figure of ``closure-nn plan`` (matplotlib, Agg): the chosen test points over the existing data."""
+"""Figure of ``closure-nn plan`` (matplotlib, Agg): the chosen test points over the existing data.
+
+matplotlib is imported inside :func:`plan_map` (with the file-only Agg backend): importing this
+module never loads it or switches a user's backend.
+"""
 from __future__ import annotations
 
 from pathlib import Path

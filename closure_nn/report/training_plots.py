@@ -3,6 +3,9 @@
 Inputs are plain dicts and numpy arrays from :func:`closure_nn.pipeline.evaluate.run_evaluation`;
 this module does not import the training code. Every figure states in its title or footer how
 its numbers were measured (which rows, which split, corrupted rows in or out).
+
+matplotlib is imported inside the drawing functions (with the file-only Agg backend): commands
+that do not draw never load it, and importing this module never switches a user's backend.
 """
 from __future__ import annotations
 

@@ -24,7 +24,11 @@ import torch
 from ..data.configurations import CONFIGURATION_CODE, SEPARATED_CONFIGURATIONS
 from ..data.features import frac_from_holdup
 from ..physics.holdup_roots import solve_separated
+from ..physics.local_state import local_state
+from ..physics.momentum import gas_residual, liquid_residual, shear_stresses
+from ..physics.vocabulary import ANNULAR, CODE, STRATIFIED_PATTERNS
 from .loss_batch import batch_conditions, batch_kinds
+from .loss_terms import holdup_sensitivity
 
 PGRAD_FLOOR = 1.0  # Pa/m: rows with a smaller |pgrad| are left out of the relative error
 
@@ -128,8 +132,6 @@ def pattern_accuracy(predicted, observed) -> dict[str, float]:
     """Share of rows with an observed pattern (non-empty string) whose predicted pattern is the
     same (``pattern_accuracy``), and the same with stratified smooth and wavy counted as one
     (``pattern_accuracy_coarse``). Arrays of pattern names ``(N,)``; None/NaN/'' = not observed."""
-    from ..physics.vocabulary import STRATIFIED_PATTERNS
-
     pred = np.asarray(predicted, dtype=object)
     obs = np.asarray(observed, dtype=object)
     seen = np.array([isinstance(o, str) and o != "" for o in obs])
@@ -158,10 +160,6 @@ def measured_state_residuals(closure, t: dict[str, torch.Tensor], pgrad_sd: torc
     ``holdup_sd`` ``(N,)``, sigma_p is replaced by the effective sd that also carries the holdup
     uncertainty (:func:`closure_nn.training.loss_terms.holdup_sensitivity`, as in the loss).
     """
-    from .loss_terms import holdup_sensitivity
-
-    from ..physics.local_state import local_state
-    from ..physics.momentum import gas_residual, liquid_residual, shear_stresses
 
     n = t["vsl"].shape[0]
     r_l = torch.full((n,), float("nan"), dtype=torch.float64)
@@ -192,10 +190,6 @@ def solver_state_residuals(closure, cond, result) -> np.ndarray:
     :math:`\max(|R_L/A_L|, |R_G/A_G|) / \max(|\hat p|, 1\,\mathrm{Pa/m})`. Zero up to the root
     finder's tolerance by construction; this measures that it is.
     """
-    from ..physics.local_state import local_state
-    from ..physics.momentum import gas_residual, liquid_residual, shear_stresses
-    from ..physics.vocabulary import ANNULAR, CODE, STRATIFIED_PATTERNS
-
     out = torch.full(cond.shape, float("nan"), dtype=torch.float64)
     with torch.no_grad():
         for kind, codes in (("stratified", [CODE[p] for p in STRATIFIED_PATTERNS]), ("annular", [CODE[ANNULAR]])):

@@ -25,6 +25,9 @@ mean over members), so a sweeper that minimises a returned value can drive it.
 
 As Hydra does, a failed job fails the sweep after all jobs have run; its row in the summary says
 ``failed`` with the error.
+
+Lightning (closure_nn.training.run) is imported inside :func:`job`, which runs in the Hydra app:
+planning and checking the jobs does not load it.
 """
 from __future__ import annotations
 
@@ -38,7 +41,14 @@ import sys
 from pathlib import Path
 from typing import Any, Iterator
 
+import hydra
+from hydra.core.config_store import ConfigStore
+from hydra.core.hydra_config import HydraConfig
+from hydra.core.override_parser.overrides_parser import OverridesParser
+from hydra.core.utils import JobStatus
+from hydra.errors import HydraException
 from hydra.experimental.callback import Callback
+from hydra.types import RunMode
 from omegaconf import DictConfig, OmegaConf
 
 from ..caution import CAUTION
@@ -59,8 +69,6 @@ NO_RESUME = "train --sweep: resume continues one run; it cannot be swept (drop r
 
 def _register() -> None:
     """Store the ``train_sweep`` primary config: conf/train.yaml plus our ``hydra.*`` settings."""
-    from hydra.core.config_store import ConfigStore
-
     ConfigStore.instance().store(name=SWEEP_CONFIG, node={
         "defaults": ["train", "_self_"],
         "hydra": {
@@ -84,8 +92,6 @@ def job(cfg: DictConfig) -> float:
 
     Returns the best value of ``cfg.trainer.monitor`` (:func:`objective`).
     """
-    from hydra.core.hydra_config import HydraConfig
-
     from .run import train  # imports Lightning
 
     if cfg.resume:
@@ -102,8 +108,6 @@ def job(cfg: DictConfig) -> float:
 def _app():
     """The ``@hydra.main`` entry point over conf/ (built when called, so that Hydra's global
     version base is set right before the run and not at import)."""
-    import hydra
-
     _register()
     return hydra.main(config_path=str(CONF_DIR), config_name=SWEEP_CONFIG, version_base=VERSION_BASE)(job)
 
@@ -124,9 +128,6 @@ def plan(overrides: list[str]) -> list[list[str]] | None:
     >>> plan(["seed=0,1", "model.hidden=[4],[8]", "trainer.max_epochs=2"])[1]
     ['seed=0', 'model.hidden=[8]', 'trainer.max_epochs=2']
     """
-    from hydra.core.override_parser.overrides_parser import OverridesParser
-    from hydra.errors import HydraException
-
     try:
         parsed = OverridesParser.create().parse_overrides(list(overrides))
     except HydraException as exc:
@@ -216,9 +217,6 @@ class SweepSummary(Callback):
     after the sweep print the summary table."""
 
     def on_job_end(self, config: DictConfig, job_return: Any, **kwargs: Any) -> None:
-        from hydra.core.utils import JobStatus
-        from hydra.types import RunMode
-
         if config.hydra.mode != RunMode.MULTIRUN:
             return
         record: dict[str, Any] = {"job": int(config.hydra.job.num), "overrides": list(job_return.overrides or []),
