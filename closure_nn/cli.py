@@ -1,5 +1,7 @@
 """Console entry point ``closure-nn``: sub-commands live in closure_nn/commands/, imported lazily
-so that fast commands (point, batch, line) never import Lightning.
+so that fast commands (point, batch, line) never import Lightning. The help text of a command's
+config keys (only with ``--help``) and pandas (only to recognise its parse errors) are imported
+where they are used, for the same reason.
 
 Arguments of the form ``key=value`` (no leading dash) are Hydra overrides of the command's config.
 """
@@ -8,6 +10,7 @@ from __future__ import annotations
 import argparse
 import errno
 import importlib
+import json
 import os
 import re
 import shutil
@@ -185,8 +188,6 @@ def _is_yaml_error(exc: BaseException) -> bool:
 
 def _input_message(exc: BaseException) -> str | None:
     """The one-line message for a bad-input exception, or None for an internal fault."""
-    import json
-
     fname = getattr(exc, "filename", None)
     if isinstance(exc, InputError):
         return str(exc)

@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import json
 import os
+import shutil
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -173,8 +174,6 @@ def combine_ensembles(parts: list[str | os.PathLike], path: str | os.PathLike, m
     """One ensemble directory at ``path`` from bundles and/or ensembles ``parts`` (in order): each
     member bundle is copied unchanged to ``member_<i>/``, so checksums and metadata carry over.
     E.g. a closure already fine-tuned plus extra bootstrap members, for an uncertainty band."""
-    import shutil
-
     p = Path(path)
     p.mkdir(parents=True, exist_ok=True)
     names = []

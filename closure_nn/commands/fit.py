@@ -11,12 +11,17 @@ Examples (key=value arguments override conf/fit.yaml, which composes conf/train.
 Validation -> design space (the table's envelope, widened to the line) -> synthetic set ->
 pre-training -> fine-tuning with development rows held back -> do-no-harm selection -> report,
 parity figure and bundle in one run folder (closure_nn/pipeline/fit.py).
+
+The pipeline, the line reader and the figures (Lightning, pandas, scipy, matplotlib) are imported
+inside :func:`run`, so that ``closure-nn fit --help`` and argument errors answer without them.
 """
 from __future__ import annotations
 
 import argparse
 import sys
 from pathlib import Path
+
+from omegaconf import OmegaConf
 
 from ..caution import CAUTION
 from ..config import load_config
@@ -39,8 +44,6 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace, overrides: list[str]) -> int:
-    from omegaconf import OmegaConf
-
     ov = list(overrides)
     if args.search is not None:
         if args.search < 0:

@@ -55,6 +55,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import torch
+from scipy.optimize import brentq
 
 from ..physics.checks import InputError
 from .local import LocalFlow, LocalSolver, Mesh
@@ -228,8 +229,6 @@ class Marcher:
 
         If p_out(p_in) jumps over the target (a pattern switch at one station), brentq closes
         in on the jump; the closer side is returned and ``stalled`` is set."""
-        from scipy.optimize import brentq
-
         st = self.set
         cache: dict[float, tuple[float, dict]] = {}
         guess = {"p": p}

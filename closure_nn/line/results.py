@@ -16,6 +16,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
+import pandas as pd
 
 from ..physics.vocabulary import PATTERNS
 from .march import MarchResult
@@ -35,8 +36,6 @@ def station_table(res: MarchResult, closure: str, role: str, in_domain: np.ndarr
                   in_measured_domain: np.ndarray | None = None):
     """Per-station DataFrame of one march (columns :data:`STATION_COLUMNS`). A closure without a
     domain check gets True in ``in_domain`` / ``in_measured_domain`` (nothing to flag)."""
-    import pandas as pd
-
     m = res.mesh
     n = m.n
     sv = lambda k: station_values(res, k)  # noqa: E731
@@ -114,8 +113,6 @@ def ensemble_band(results: list[MarchResult]):
 
     The sd uses N - 1 (sample standard deviation); mean +- 2 sd is written alongside.
     """
-    import pandas as pd
-
     if not results:
         return None
     base = results[0]

@@ -35,7 +35,11 @@ import numpy as np
 import pandas as pd
 import torch
 
+from ..closures.baseline import BaselineClosure
 from ..data.design_space import DesignSpace, parse_design
+from ..line.fluid import GasModel
+from ..line.local import LocalSolver, Mesh
+from ..line.march import Marcher, MarchSettings
 
 #: columns of a conditions table that describe a state (SI)
 STATE_COLUMNS = ("vsl", "vsg", "D", "theta", "roughness", "rhol", "rhog", "mul", "mug", "sigma")
@@ -146,11 +150,6 @@ def line_conditions(line, solver: dict | None = None) -> pd.DataFrame:
     """Local conditions (SI, :data:`STATE_COLUMNS`) at the start of every segment of ``line`` (a
     :class:`closure_nn.line.definition.LineDefinition`), at the pressures of a march with the
     baseline closure of conf/closure/baseline.yaml (Churchill wall, Andritsos-Hanratty interface)."""
-    from ..closures.baseline import BaselineClosure
-    from ..line.fluid import GasModel
-    from ..line.local import LocalSolver, Mesh
-    from ..line.march import Marcher, MarchSettings
-
     gas = GasModel(line.fluid, (float(np.min(line.T)), float(np.max(line.T))))
     local = LocalSolver(line, gas, dict(solver or {}))
     base = BaselineClosure(wall="churchill", interface="andritsos_hanratty")

@@ -54,6 +54,7 @@ from omegaconf import DictConfig, OmegaConf
 from ..caution import CAUTION
 from ..closures.loading import load_saved_closure
 from ..config import CONF_DIR, load_config
+from ..data.demo_reference import ReferenceClosure
 from ..data.design_space import parse_design
 from ..data.result_tables import write_result_csv
 from ..data.splits import group_labels, grouped_split, kfold_split, random_split
@@ -160,8 +161,6 @@ def evaluate_split(cfg: DictConfig, name: str, lab: pd.DataFrame, train_idx: np.
     boxes, box_info = black_boxes(cfg, tr)
     models = {"baseline": baseline_of(cfg), "learned": ft.closure, **boxes}
     if cfg.scoring.oracle:
-        from ..data.demo_reference import ReferenceClosure
-
         models["reference"] = ReferenceClosure()
     test = lab.iloc[test_idx].reset_index(drop=True)
     preds = {k: predict_table(m, test, solver) for k, m in models.items()}

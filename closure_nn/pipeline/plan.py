@@ -32,6 +32,7 @@ import torch
 import yaml
 
 from ..closures.ensemble import ClosureEnsemble
+from ..config_checks import check_keys  # unknown names: the nearest valid one
 from ..data.design_space import DesignSpace, parse_design
 from ..data.schema import to_conditions
 from ..data.synthetic import lhs_unit
@@ -65,8 +66,6 @@ def _law(lo: float, hi: float, unit: str) -> dict:
 def envelope_design(spec: Mapping, where: str = "envelope") -> DesignSpace:
     """A loop envelope (see :func:`read_envelope`) as a design space: v_SL, v_SG log-uniform,
     inclination and pressure uniform, the diameters and liquids a choice."""
-    from ..config_checks import check_keys  # unknown names: the nearest valid one
-
     check_keys(spec, ENVELOPE_KEYS, where)
     for k in ("vsl", "vsg", "D_mm", "theta_deg", "p_bara", "liquids"):
         if k not in spec:

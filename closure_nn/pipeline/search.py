@@ -60,7 +60,7 @@ def search_settings(cfg: DictConfig, pre: StageResult, rows: pd.DataFrame, run_d
                     say: Callable[[str], None] = print) -> tuple[DictConfig, dict]:
     """Run ``fit.search.trials`` Optuna trials (module docstring); return the config with the chosen
     settings and a report (one row per trial: its settings, development gain, measures, seconds)."""
-    import optuna
+    import optuna  # here, not at the top: Optuna loads only when a search runs
 
     optuna.logging.set_verbosity(logging.WARNING)
     space = OmegaConf.to_container(cfg.fit.search.space, resolve=True)

@@ -35,6 +35,8 @@ import pandas as pd
 import torch
 from torch import nn
 
+from ..closures.neural import ACTIVATIONS
+
 #: input columns (SI) of the regressor, in order
 INPUT_COLUMNS = ("vsl", "vsg", "D", "theta", "roughness", "rhol", "rhog", "mul", "mug", "sigma")
 _LOG_COLUMNS = ("D", "rhol", "rhog", "mul", "mug", "sigma")
@@ -83,8 +85,6 @@ class BlackBoxRegressor(nn.Module):
 
     def __init__(self, settings: BlackBoxSettings | None = None) -> None:
         super().__init__()
-        from ..closures.neural import ACTIVATIONS
-
         self.settings = s = settings or BlackBoxSettings()
         layers: list[nn.Module] = []
         width = len(INPUT_COLUMNS)

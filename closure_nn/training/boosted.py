@@ -309,7 +309,7 @@ class BoostedGroupsRegressor:
             return _groups(c).numpy(), _no_slip_holdup(c).numpy(), no_slip_friction_gradient(c).numpy()
 
     def _model(self, cand: Candidate, max_iter: int):
-        from sklearn.ensemble import HistGradientBoostingRegressor
+        from sklearn.ensemble import HistGradientBoostingRegressor  # here: scikit-learn loads only when trees are trained
 
         s = self.settings
         return HistGradientBoostingRegressor(

@@ -6,13 +6,15 @@ threads and Lightning state.
 """
 from __future__ import annotations
 
+import multiprocessing as mp
+from concurrent.futures import ProcessPoolExecutor
 from typing import Callable, Sequence
+
+import torch
 
 
 def _call(item: tuple) -> object:
     fn, threads, args = item
-    import torch
-
     torch.set_num_threads(int(threads))
     return fn(*args)
 
@@ -26,8 +28,5 @@ def map_in_processes(fn: Callable, jobs: Sequence[tuple], processes: int, thread
     """
     if processes <= 1 or len(jobs) <= 1:
         return [fn(*a) for a in jobs]
-    import multiprocessing as mp
-    from concurrent.futures import ProcessPoolExecutor
-
     with ProcessPoolExecutor(max_workers=min(processes, len(jobs)), mp_context=mp.get_context("spawn")) as pool:
         return list(pool.map(_call, [(fn, threads, tuple(a)) for a in jobs]))

@@ -37,6 +37,8 @@ import numpy as np
 import pandas as pd
 import torch
 
+from ..closures.base import Closure
+from ..closures.ensemble import ClosureEnsemble
 from ..data.schema import to_conditions
 from ..physics.point import solve_points
 from .metrics import error_summary, pattern_accuracy, solver_state_residuals
@@ -65,9 +67,6 @@ def predict_table(model, df: pd.DataFrame, solver: dict | None = None) -> dict[s
 
 
 def _is_closure(model) -> bool:
-    from ..closures.base import Closure
-    from ..closures.ensemble import ClosureEnsemble
-
     return isinstance(model, (Closure, ClosureEnsemble))
 
 
