@@ -87,3 +87,37 @@ def test_the_checker_finds_a_circle():
 def test_closure_nn_has_no_import_circles():
     found = circles(import_graph())
     assert not found, f"import circles: {found}"
+
+
+#: layer -> packages of closure_nn it may import besides itself (DEVELOPING.md, "Layers"): the
+#: physics nothing, the closures only the physics; nothing below the drawing and workflow layers
+#: imports report/, pipeline/ or commands/ (figure writers are passed in by the callers)
+LOWER_LAYERS = {
+    "physics": set(),
+    "closures": {"physics"},
+}
+NEVER_FROM_BELOW = {"report", "pipeline", "commands", "cli"}
+#: top-level helpers every layer may use (the caution text, atomic run-folder writes)
+UTILITIES = {"caution", "run_folder"}
+BELOW = ("physics", "closures", "data", "training", "line", "audit")
+
+
+def _layer(module: str) -> str:
+    parts = module.split(".")
+    return parts[1] if len(parts) > 1 else ""
+
+
+def test_lower_layers_import_nothing_above_them():
+    assert "closure_nn.report.line_plots" not in import_graph()["closure_nn.line.run"]
+    wrong = []
+    for m, targets in import_graph().items():
+        layer = _layer(m)
+        for t in targets:
+            other = _layer(t)
+            if other in ("", layer):
+                continue
+            if layer in LOWER_LAYERS and other not in LOWER_LAYERS[layer] and other not in UTILITIES:
+                wrong.append(f"{m} -> {t}")
+            elif layer in BELOW and other in NEVER_FROM_BELOW:
+                wrong.append(f"{m} -> {t}")
+    assert not wrong, "imports against the layers: " + ", ".join(sorted(wrong))

@@ -23,6 +23,7 @@ from closure_nn.closures.baseline import BaselineClosure
 from closure_nn.line.definition import load_line, parse_rate, read_profile
 from closure_nn.line.march import MarchSettings
 from closure_nn.line.run import run_line, write_line_run
+from closure_nn.report.line_plots import line_figure
 from closure_nn.physics.checks import InputError
 from closure_nn.physics.groups import FEATURE_NAMES
 
@@ -115,7 +116,7 @@ def test_side_by_side_ensemble_and_domain_flags(line_dir):
     band = run.band()
     assert (band["p_min"] <= band["p_mean"] + 1e-9).all() and (band["p_mean"] <= band["p_max"] + 1e-9).all()
     assert (band["p_max"] - band["p_min"]).iloc[-1] > 0  # members differ
-    files = write_line_run(run, line_dir, config_yaml="x: 1\n")
+    files = write_line_run(run, line_dir, config_yaml="x: 1\n", figure=line_figure)
     assert {"stations", "band", "summary", "plot", "config"} <= set(files)
     assert files["plot"].stat().st_size > 10_000
     assert json.loads(files["summary"].read_text())["caution"] == CAUTION

@@ -182,6 +182,7 @@ def test_line_summary_table_plot_and_demo_table_carry_the_measured_count(line_di
     from closure_nn.line.definition import load_line
     from closure_nn.line.march import MarchSettings
     from closure_nn.line.run import run_line, write_line_run
+    from closure_nn.report.line_plots import line_figure
 
     run = run_line(load_line(line_dir / "line.yaml"), {"half": HalfMeasured(), "baseline": BaselineClosure()},
                    settings=MarchSettings(tol=50.0), raise_errors=True)
@@ -195,7 +196,7 @@ def test_line_summary_table_plot_and_demo_table_carry_the_measured_count(line_di
     assert m["intervals_m"] == [[500.0, 500.0]] and m["recorded"]
     assert summ["closures"]["half"]["out_of_domain"]["stations"] == 0
     assert summ["closures"]["baseline"]["out_of_measured_domain"] == {"checked": False}
-    files = write_line_run(run, line_dir)
+    files = write_line_run(run, line_dir, figure=line_figure)
     assert "in_measured_domain" in pd.read_csv(files["stations"], comment="#").columns
     assert files["plot"].stat().st_size > 10_000
     text = _summary({"splits": {}}, {"audit": {"rows": 0, "suspect_rows": 0}}, summ, {}, line_dir, line_dir)["text"]

@@ -67,6 +67,7 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     from ..line.definition import line_from_config
     from ..line.march import MarchSettings
     from ..line.run import run_line, write_line_run
+    from ..report.line_plots import line_figure
 
     cfg, base_dir = _config(args, overrides)
     line = line_from_config(cfg.line, base_dir=base_dir, where=str(args.line_file or "conf line"))
@@ -86,7 +87,7 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     run_dir = make_run_dir("line", args.out or cfg.run_root)
     plot = cfg.plot and not args.no_plot
     _say(f"writing stations.csv{', band.csv' if members else ''}, summary.json{' and line.png' if plot else ''}")
-    files = write_line_run(result, run_dir, config_yaml=OmegaConf.to_yaml(cfg), plot=plot)
+    files = write_line_run(result, run_dir, config_yaml=OmegaConf.to_yaml(cfg), figure=line_figure if plot else None)
     _print_summary(result, line)
     print(f"results: {run_dir} ({', '.join(p.name for p in files.values())})")
     print(CAUTION)

@@ -16,8 +16,8 @@ its fine-tune/update rows, see :mod:`closure_nn.closures.neural`): stations outs
 the learned correction rests on synthetic baseline points only (or on nothing). Reported as
 ``out_of_measured_domain`` in the summary and ``in_measured_domain`` in ``stations.csv``.
 
-The figure writer (closure_nn.report.line_plots, a layer above) is imported inside
-:func:`write_line_run`, only when a plot is asked for.
+The figure writer (closure_nn.report.line_plots.line_figure, a layer above) is passed in by the
+caller (``figure=``), so this layer never imports the plotting one.
 """
 from __future__ import annotations
 
@@ -161,9 +161,11 @@ def run_line(line: LineDefinition, closures: Mapping[str, object], ensemble: Seq
                    in_measured=measured, measured_recorded=recorded)
 
 
-def write_line_run(run: LineRun, run_dir: str | Path, config_yaml: str | None = None, plot: bool = True) -> dict[str, Path]:
-    """Write stations.csv, band.csv (if an ensemble ran), summary.json, line.png and CAUTION.txt
-    into ``run_dir``. The CSVs are plain tables with the SI unit in each header (``p [Pa]``)."""
+def write_line_run(run: LineRun, run_dir: str | Path, config_yaml: str | None = None,
+                   figure: Callable[[LineRun, pd.DataFrame, pd.DataFrame | None, Path], Path] | None = None) -> dict[str, Path]:
+    """Write stations.csv, band.csv (if an ensemble ran), summary.json, CAUTION.txt and, with a
+    ``figure`` writer (called with the run, the stations, the band and the path), line.png into
+    ``run_dir``. The CSVs are plain tables with the SI unit in each header (``p [Pa]``)."""
     d = Path(run_dir)
     files = {}
     st = run.stations()
@@ -179,10 +181,6 @@ def write_line_run(run: LineRun, run_dir: str | Path, config_yaml: str | None = 
     if config_yaml is not None:
         files["config"] = d / "config.yaml"
         files["config"].write_text(config_yaml)
-    if plot and len(st):
-        from ..report.line_plots import plot_line
-
-        invented = run.line.invented and "invented" not in run.line.name.lower()
-        title = run.line.name + (" (invented line)" if invented else "")
-        files["plot"] = plot_line(st, band, d / "line.png", title=title, summary=run.summary())
+    if figure is not None and len(st):
+        files["plot"] = figure(run, st, band, d / "line.png")
     return files

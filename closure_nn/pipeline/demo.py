@@ -35,6 +35,7 @@ from ..closures.registry import build_closure
 from ..line.definition import line_from_config
 from ..line.march import MarchSettings
 from ..line.run import run_line, write_line_run
+from ..report.line_plots import line_figure
 from ..run_folder import write_json
 from .audit_stage import audit_table
 from .evaluate import make_synthetic, repo_path, run_evaluation
@@ -112,7 +113,7 @@ def run_demo(cfg: DictConfig, ecfg: DictConfig, acfg: DictConfig, lcfg: DictConf
                      settings=MarchSettings(**OmegaConf.to_container(lcfg.march)), say=say)
     line_dir = run_dir / "line"
     line_dir.mkdir()
-    write_line_run(march, line_dir, config_yaml=OmegaConf.to_yaml(lcfg), plot=bool(lcfg.plot))
+    write_line_run(march, line_dir, config_yaml=OmegaConf.to_yaml(lcfg), figure=line_figure if lcfg.plot else None)
     seconds["line"] = time.perf_counter() - t0
     seconds["total"] = time.perf_counter() - t_all
 

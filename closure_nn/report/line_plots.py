@@ -214,3 +214,12 @@ def _pattern_key(ax_b, comp, ood_any: bool, unmeasured_any: bool) -> None:
         handles.append(Patch(color=OUTSIDE_MEASURED, label="outside measured data"))
     ax_b.legend(handles=handles, loc="upper center", bbox_to_anchor=(0.5, -0.55), ncol=min(len(handles), 5),
                 fontsize=8, frameon=False)
+
+
+def line_figure(run, stations, band, path: str | Path) -> Path:
+    """The figure writer of :func:`closure_nn.line.run.write_line_run`: :func:`plot_line` of a
+    :class:`~closure_nn.line.run.LineRun` with the line's name as title ("invented" added where the
+    line is marked invented and its name does not say so)."""
+    invented = run.line.invented and "invented" not in run.line.name.lower()
+    title = run.line.name + (" (invented line)" if invented else "")
+    return plot_line(stations, band, path, title=title, summary=run.summary())
