@@ -141,14 +141,14 @@ TRAIN = {
 _WIDE_LIST = ListOf(NUM, min_len=1)
 
 RULES: dict[str, dict[str, Rule]] = {
-    "point": {**_under("closure", CLOSURE), **_under("solver", SOLVER), "run_root": PATH},
+    "point": {**_under("closure", CLOSURE), **_under("solver", SOLVER), "threads": WHOLE1, "run_root": PATH},
     "check_data": {"run_root": PATH, "unknown_columns": Choice(("keep", "drop")),
                    "table_format": Choice(("csv", "parquet")), "unit_headers": FLAG},
     "synth": {
         **_under("closure", CLOSURE), **_under("solver", SOLVER),
         "design": Opaque("a design space (closure_nn.data.design_space.parse_design)"),
         "n": WHOLE1, "seed": SEED, "chunk": WHOLE1, "table_format": Choice(("csv", "parquet")),
-        "progress": FLAG, "run_root": PATH, "run_name": NAME,
+        "progress": FLAG, "threads": WHOLE1, "run_root": PATH, "run_name": NAME,
     },
     "train": TRAIN,
     "fit": {

@@ -77,3 +77,17 @@ def test_batch_writes_results_and_does_not_import_lightning(tmp_path):
     # horizontal air-water map of the trade (common practice), 5 cm pipe
     assert list(res["calc_pattern"]) == ["stratified_smooth", "intermittent", "annular"]
     assert (run / "CAUTION.txt").exists() and (run / "config.yaml").exists()
+
+
+def test_point_uses_one_torch_thread_unless_told(capsys):
+    """`threads` of conf/point.yaml (default 1, benchmarks/README.md "Threads") sets torch's
+    intra-op threads; a check of our own settings, no outside source."""
+    before = torch.get_num_threads()
+    try:
+        assert main(["point", "--vsl", "0.1", "--vsg", "3", "--D", "0.1", "threads=2"]) == 0
+        assert torch.get_num_threads() == 2
+        assert main(["point", "--vsl", "0.1", "--vsg", "3", "--D", "0.1"]) == 0
+        assert torch.get_num_threads() == 1
+    finally:
+        torch.set_num_threads(before)
+    capsys.readouterr()

@@ -44,6 +44,7 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     from ..data.table_io import read_table
 
     cfg = load_config("point", overrides)
+    torch.set_num_threads(int(cfg.threads))
     output, out_root, old_out = args.output, args.out, None
     if out_root and Path(out_root).suffix.lower() in _TABLE_SUFFIXES and not Path(out_root).is_dir():
         output, out_root, old_out = out_root, None, out_root  # the old spelling: --out FILE

@@ -41,6 +41,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace, overrides: list[str]) -> int:
     cfg = load_config("point", overrides)
+    torch.set_num_threads(int(cfg.threads))
     rhog, mug = args.rhog, args.mug
     if args.gas_fluid:
         if args.p is None:

@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import argparse
 
+import torch
 from omegaconf import OmegaConf
 
 from ..caution import CAUTION
@@ -39,6 +40,7 @@ def run(args: argparse.Namespace, overrides: list[str]) -> int:
     from ..data.table_io import write_table
 
     cfg = load_config("synth", overrides)
+    torch.set_num_threads(int(cfg.threads))
     if cfg.table_format not in ("csv", "parquet"):
         raise InputError(f"table_format must be 'csv' or 'parquet', not {cfg.table_format!r}")
     for key in ("n", "chunk"):
