@@ -20,6 +20,8 @@ import time
 import traceback
 from pathlib import Path
 
+import torch
+
 from .config import CONFIG_DIR_ENV
 from .physics.checks import InputError
 from .run_folder import CREATED_RUN_DIRS
@@ -105,6 +107,9 @@ def main(argv: list[str] | None = None) -> int:
         module.add_arguments(cmd_parser)
         args, overrides = _split(argv, _value_options(cmd_parser))
         ns = cmd_parser.parse_args(args[1:])
+        # one torch thread unless a command's setting asks for more (`threads`, `trainer.num_threads`):
+        # two threads on busy cores were up to 35x slower (benchmarks/README.md, Threads)
+        torch.set_num_threads(1)
         return int(module.run(ns, overrides) or 0)
     except BrokenPipeError:  # the reader of a pipe stopped early (`closure-nn ... | head`): not a fault
         return _reader_gone()
