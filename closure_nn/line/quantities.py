@@ -26,7 +26,6 @@ RATE_UNITS: dict[str, tuple[str, float]] = {
     "bbl/d": ("volume", _BBL / _DAY),
 }
 _NUM_UNIT = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*(.*?)\s*$")
-_NUM_UNIT = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*(.*?)\s*$")
 
 
 def parse_quantity(value, dimension: str, key: str, where: str = "") -> float:
