@@ -1,8 +1,8 @@
 """`closure-nn fit TABLE ensemble.members=2 ensemble.bootstrap=true` ships an ensemble that `plan`
 accepts (the README's "further steps"), at a small size.
 
-The lab table is INVENTED (noisy rows of the demo's invented truth closure on a small loop design
-of our own); the envelope is the demo loop's (data_demo/loop_envelope.yaml, invented). Checks of
+The lab table is INVENTED (tests/invented_loop.py: noisy rows of the demo's invented truth closure on
+a small loop design of our own); the envelope is the demo loop's (data_demo/loop_envelope.yaml, invented). Checks of
 our own workflow, not of an outside source: the members are distinct fine-tunes (bootstrap
 replicates) and the plan's disagreement is positive where they differ.
 """
@@ -17,9 +17,7 @@ import pytest
 from closure_nn.api import load_closure
 from closure_nn.cli import main
 from closure_nn.closures.ensemble import ClosureEnsemble
-from closure_nn.data.closure_table import noisy_table
-from closure_nn.data.demo_reference import ReferenceClosure
-from closure_nn.data.design_space import parse_design
+from invented_loop import write_lab_table
 
 ROOT = Path(__file__).resolve().parents[1]
 SMALL = ["fit.synth.n=300", "stage_trainer.pretrain.max_epochs=1", "stage_trainer.finetune.max_epochs=4",
@@ -28,13 +26,7 @@ SMALL = ["fit.synth.n=300", "stage_trainer.pretrain.max_epochs=1", "stage_traine
 
 @pytest.mark.filterwarnings("ignore")
 def test_fit_ships_an_ensemble_that_plan_ranks(tmp_path, capsys):
-    design = parse_design({"name": "small_loop_invented", "variables": {
-        "vsl": {"law": "log_uniform", "low": 0.01, "high": 0.3}, "vsg": {"law": "log_uniform", "low": 0.5, "high": 10.0},
-        "D": {"law": "choice", "values": [50.0, 100.0], "unit": "mm"},
-        "theta": {"law": "uniform", "low": -2.0, "high": 2.0, "unit": "deg"}, "roughness": 1e-5, "rhol": 998.0,
-        "rhog": {"law": "uniform", "low": 1.2, "high": 6.0}, "mul": 1e-3, "mug": 1.8e-5, "sigma": 0.072}})
-    lab = tmp_path / "lab.csv"
-    noisy_table(design, 80, 0, ReferenceClosure()).drop(columns=["holdup_true", "pgrad_true"]).to_csv(lab, index=False)
+    lab = write_lab_table(tmp_path / "lab.csv")
     assert main(["fit", str(lab), "--out", str(tmp_path / "runs"), *SMALL]) == 0
     (run,) = (tmp_path / "runs").iterdir()
     report = json.loads((run / "report.json").read_text())

@@ -15,9 +15,7 @@ import pytest
 
 from closure_nn.cli import main
 from closure_nn.config import CONF_DIR
-from closure_nn.data.closure_table import noisy_table
-from closure_nn.data.demo_reference import ReferenceClosure
-from closure_nn.data.design_space import parse_design
+from invented_loop import write_lab_table
 
 README = Path(__file__).resolve().parents[1] / "README.md"
 SMALL_FIT = ["fit.synth.n=300", "stage_trainer.pretrain.max_epochs=1", "stage_trainer.finetune.max_epochs=3"]
@@ -42,13 +40,7 @@ def test_quick_start_has_at_most_six_commands_built_on_fit():
 
 @pytest.mark.filterwarnings("ignore")
 def test_quick_start_runs_as_written(tmp_path, capsys):
-    design = parse_design({"name": "quick_start_loop", "variables": {
-        "vsl": {"law": "log_uniform", "low": 0.01, "high": 0.3}, "vsg": {"law": "log_uniform", "low": 0.5, "high": 10.0},
-        "D": {"law": "choice", "values": [50.0, 100.0], "unit": "mm"},
-        "theta": {"law": "uniform", "low": -2.0, "high": 2.0, "unit": "deg"}, "roughness": 1e-5, "rhol": 998.0,
-        "rhog": {"law": "uniform", "low": 1.2, "high": 6.0}, "mul": 1e-3, "mug": 1.8e-5, "sigma": 0.072}})
-    lab = tmp_path / "my_loop.csv"
-    noisy_table(design, 80, 0, ReferenceClosure()).drop(columns=["holdup_true", "pgrad_true"]).to_csv(lab, index=False)
+    lab = write_lab_table(tmp_path / "my_loop.csv")
     line = CONF_DIR / "line" / "karvel_ridge.yaml"
     runs = tmp_path / "runs"
     fit_run = None
