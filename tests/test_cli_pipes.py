@@ -1,6 +1,7 @@
 """A reader that stops early (`closure-nn batch ... | head`) ends the command quietly: no
 "internal error" line, no error log, exit 0. The handling follows the Python documentation's note
-on SIGPIPE (signal module); otherwise a check of the tool's own error boundary."""
+on SIGPIPE (signal module, the source of the rule); otherwise a check of the tool's own error
+boundary."""
 from __future__ import annotations
 
 import subprocess

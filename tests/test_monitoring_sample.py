@@ -1,7 +1,8 @@
 """Monitoring metrics on a sample of rows (closure_nn.training.metrics.accuracy, ``max_rows``).
 
 Invented truth (defined here): a table solved with the baseline closure itself, so its own
-accuracy is zero on any sample; and a shifted copy whose errors are known row by row.
+accuracy is zero on any sample; and a shifted copy whose errors are known row by row. No outside
+source applies: a check of the tool's own sampling.
 """
 import numpy as np
 import torch

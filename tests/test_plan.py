@@ -6,7 +6,8 @@ any experiment). The loop envelope is invented here. The main test runs the trai
 `closure-nn fit` at a test budget. The other tests use a cheaper ensemble: NeuralClosures fitted
 by least squares to the truth's ln(f / f_base), with noise, at states around the truth's
 equilibria of the measured conditions (what a measured holdup gives); their scaler and training
-domain span the whole envelope, their measured-data domain the measured rows only.
+domain span the whole envelope, their measured-data domain the measured rows only. No outside
+source applies to the planning itself: the checks compare planned with random points on the truth.
 """
 from __future__ import annotations
 

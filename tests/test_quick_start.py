@@ -3,7 +3,8 @@
 The commands are read from README.md itself (the first code block after the heading "Your own
 data: quick start"), so the README cannot drift from the tool. The lab table is INVENTED (noisy
 rows of the demo's invented truth closure); the line is the invented demo line. Only the sizes are
-reduced (a small synthetic set and few epochs for `fit`).
+reduced (a small synthetic set and few epochs for `fit`). No outside source applies: a check that
+the documented workflow runs.
 """
 from __future__ import annotations
 
