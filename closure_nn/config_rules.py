@@ -26,7 +26,7 @@ OPT_PATH = Text("a path", nullable=True)
 NAME = Text("a name", nullable=True)
 OUTPUTS = "closure_nn.closures.neural:OUTPUT_NAMES"
 FEATURES = "closure_nn.physics.groups:FEATURE_NAMES"
-STAGES = "closure_nn.training.run:STAGES"
+STAGES = "closure_nn.training.choices:STAGES"
 TERMS = "closure_nn.training.loss:TERMS"
 SELECT = Choice("closure_nn.physics.holdup_roots:SELECT_RULES")
 
@@ -90,7 +90,7 @@ TRAINER = {
     "batch_size": Number(1, whole=True, nullable=True),
     "lr": POS,
     "weight_decay": NONNEG,
-    "lr_schedule": Choice("closure_nn.training.module:LR_SCHEDULES"),
+    "lr_schedule": Choice("closure_nn.training.choices:LR_SCHEDULES"),
     "lr_final_factor": NONNEG,
     "gradient_clip_val": Number(0, nullable=True),
     "monitor": Choice(_MONITORS),

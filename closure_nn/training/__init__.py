@@ -9,7 +9,7 @@ from __future__ import annotations
 import importlib
 
 _EXPORTS = {
-    "train": "run", "STAGES": "run", "run_stage": "run", "StageResult": "run",
+    "train": "run", "STAGES": "choices", "run_stage": "run", "StageResult": "run",
     "predict_table": "scoring", "score_table": "scoring", "no_harm": "scoring", "NoHarmSettings": "scoring",
     "ClosureLoss": "loss", "LossSettings": "loss", "TERMS": "loss",
     "accuracy": "metrics", "predict_rows": "metrics",

@@ -7,12 +7,12 @@ import lightning as L
 import torch
 
 from ..closures.neural import NeuralClosure
+from .choices import LR_SCHEDULES
 from .loss import TERMS, ClosureLoss, LossSettings
 from .metrics import accuracy
 from .tables import n_rows
 
 #: learning-rate schedules of ``trainer.lr_schedule``
-LR_SCHEDULES = ("constant", "cosine")
 
 
 class ClosureTask(L.LightningModule):

@@ -44,6 +44,7 @@ from ..data.table_io import read_table
 from ..data.validate import validate_table
 from ..physics.checks import InputError
 from ..run_folder import make_run_dir, write_json
+from .choices import STAGES
 from .development import development_selection
 from .loss_batch import batch_conditions, batch_kinds
 from .member_fit import (REPLAYED, ROW_WEIGHT, baseline_kwargs, fit_member, fit_member_in_worker, init_closure,
@@ -52,8 +53,6 @@ from .processes import map_in_processes
 from .tables import bootstrap_table, replay_sample, split_table, table_tensors
 
 __all__ = ["STAGES", "StageResult", "baseline_kwargs", "read_training_table", "run_stage", "train", "with_stage_trainer"]
-
-STAGES = ("pretrain", "finetune", "update")
 
 
 def _provenance(name: str, path, df: pd.DataFrame) -> dict:
