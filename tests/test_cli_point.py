@@ -91,3 +91,15 @@ def test_point_uses_one_torch_thread_unless_told(capsys):
     finally:
         torch.set_num_threads(before)
     capsys.readouterr()
+
+
+@pytest.mark.parametrize("command", ["train", "fit", "evaluate"])
+def test_help_of_training_commands_does_not_import_lightning(command):
+    """`--help` lists the config keys with their checks and defaults without loading Lightning or
+    scipy (closure_nn/training/choices.py; lazy closure_nn.data). Our own start-up rule, no outside source."""
+    code = ("import sys; from closure_nn.cli import main\n"
+            f"try: main(['{command}', '--help'])\nexcept SystemExit: pass\n"
+            "print(sorted(m for m in ('lightning', 'pytorch_lightning', 'scipy') if m in sys.modules))")
+    r = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
+    assert r.returncode == 0, r.stderr
+    assert r.stdout.strip().splitlines()[-1] == "[]", r.stdout[-300:]
