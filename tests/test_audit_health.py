@@ -7,8 +7,6 @@ threshold v_SG,t = 5 m/s sqrt(1.2/rho_G); Barnea & Taitel (1992) for several roo
 """
 from __future__ import annotations
 
-import math
-
 import fluids.friction
 import numpy as np
 import pytest

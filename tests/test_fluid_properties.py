@@ -1,6 +1,4 @@
 """Named-fluid properties through CoolProp against handbook values and the ideal-gas law."""
-import math
-
 import pytest
 
 from closure_nn.fluid_properties import coolprop_available, named_fluid, surface_tension

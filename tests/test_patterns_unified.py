@@ -13,7 +13,6 @@ Kelvin-Helmholtz boundary to higher liquid rates.
 from __future__ import annotations
 
 import math
-from pathlib import Path
 
 import numpy as np
 import pytest
