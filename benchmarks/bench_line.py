@@ -18,6 +18,7 @@ import time
 import numpy as np
 import torch
 
+from closure_nn.allocator import keep_freed_memory
 from closure_nn.closures.baseline import BaselineClosure
 from closure_nn.line.definition import FluidSpec, LineDefinition
 from closure_nn.line.march import MarchSettings
@@ -43,7 +44,11 @@ def main() -> None:
     ap.add_argument("--members", type=int, default=5)
     ap.add_argument("--boundary", default="outlet", choices=("inlet", "outlet"))
     ap.add_argument("--threads", type=int, default=1)
+    ap.add_argument("--glibc-defaults", action="store_true",
+                    help="leave glibc malloc at its defaults (the command line keeps freed memory: closure_nn/allocator.py)")
     a = ap.parse_args()
+    if not a.glibc_defaults:
+        keep_freed_memory()
     torch.set_num_threads(a.threads)
     line = bench_line(a.stations, a.length, a.boundary)
     closures = {"baseline": BaselineClosure(), "learned": BaselineClosure(interface_kwargs={"coef": 12.0})}

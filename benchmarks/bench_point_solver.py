@@ -32,6 +32,7 @@ import time
 import numpy as np
 import torch
 
+from closure_nn.allocator import keep_freed_memory
 from closure_nn.closures.baseline import BaselineClosure
 from closure_nn.physics.conditions import make_conditions
 from closure_nn.physics.holdup_roots import find_roots, frac_grid
@@ -134,14 +135,19 @@ def main() -> None:
     ap.add_argument("--before", default=None, help="git revision of an earlier root finder to time alongside")
     ap.add_argument("--rss", type=int, default=0, help="peak-RSS run with this many states (child processes)")
     ap.add_argument("--rss-child", default=None, help=argparse.SUPPRESS)
+    ap.add_argument("--glibc-defaults", action="store_true",
+                    help="leave glibc malloc at its defaults (the command line keeps freed memory: closure_nn/allocator.py)")
     a = ap.parse_args()
+    if not a.glibc_defaults:
+        keep_freed_memory()
     if a.rss_child:
         return rss_child(a.rss_child, a.rss)
     if a.rss:
         print("| solve | peak RSS | after imports | after building the states | time (1 thread) |")
         print("|---|---|---|---|---|")
         for what in ("find_roots", "solve_points"):
-            subprocess.run([sys.executable, __file__, "--rss", str(a.rss), "--rss-child", what], check=True)
+            subprocess.run([sys.executable, __file__, "--rss", str(a.rss), "--rss-child", what]
+                           + ["--glibc-defaults"] * a.glibc_defaults, check=True)
         return
     torch.set_num_threads(a.threads)
     closure = BaselineClosure(**CLOSURE)

@@ -30,6 +30,8 @@ import time
 import warnings
 from pathlib import Path
 
+from closure_nn.allocator import keep_freed_memory
+
 
 def machine() -> dict:
     import torch
@@ -109,7 +111,11 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--skip-demo", action="store_true")
     ap.add_argument("--compare-solvers", type=int, default=0, metavar="R",
                     help="only the solver-in-the-loop epoch, R times each with the stencil and the all-roots solve")
+    ap.add_argument("--glibc-defaults", action="store_true",
+                    help="leave glibc malloc at its defaults (the command line keeps freed memory: closure_nn/allocator.py)")
     a = ap.parse_args(argv)
+    if not a.glibc_defaults:
+        keep_freed_memory()
     warnings.simplefilter("ignore")
     import torch
     from omegaconf import OmegaConf

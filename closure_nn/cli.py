@@ -22,6 +22,7 @@ from pathlib import Path
 
 import torch
 
+from .allocator import keep_freed_memory
 from .config import CONFIG_DIR_ENV
 from .physics.checks import InputError
 from .run_folder import CREATED_RUN_DIRS
@@ -110,6 +111,7 @@ def main(argv: list[str] | None = None) -> int:
         # one torch thread unless a command's setting asks for more (`threads`, `trainer.num_threads`):
         # two threads on busy cores were up to 35x slower (benchmarks/README.md, Threads)
         torch.set_num_threads(1)
+        keep_freed_memory()  # glibc malloc: reuse freed tensor memory (closure_nn/allocator.py)
         return int(module.run(ns, overrides) or 0)
     except BrokenPipeError:  # the reader of a pipe stopped early (`closure-nn ... | head`): not a fault
         return _reader_gone()

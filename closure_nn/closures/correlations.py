@@ -14,16 +14,17 @@ from ..physics.friction import fanning_blasius_td, fanning_churchill
 from ..physics.local_state import LocalState
 
 
-def _re_eD(s: LocalState, phase: str) -> tuple[torch.Tensor, torch.Tensor]:
+def _re_eD(s: LocalState, phase: str) -> tuple[tuple[torch.Tensor, torch.Tensor], torch.Tensor]:
+    """The phase's Reynolds number as (per-state, per-level) factors and roughness / D_h [-]."""
+    rough = s.cond.roughness / s.cond.D
     if phase == "liquid":
-        return s.Re_L, s.cond.roughness / s.geom.D_L
-    return s.Re_G, s.cond.roughness / s.geom.D_G
+        return s.Re_L_parts, rough * (1 / s.geom.d_L)
+    return s.Re_G_parts, rough * (1 / s.geom.d_G)
 
 
 def wall_taitel_dukler(s: LocalState, phase: str) -> torch.Tensor:
     """Taitel & Dukler (1976) smooth-wall Blasius constants, see :func:`fanning_blasius_td`. Ignores roughness."""
-    Re, _ = _re_eD(s, phase)
-    return fanning_blasius_td(Re)
+    return fanning_blasius_td(s.Re_L if phase == "liquid" else s.Re_G)
 
 
 def wall_churchill(s: LocalState, phase: str) -> torch.Tensor:

@@ -13,7 +13,6 @@ import torch
 TD_TURBULENT_C, TD_TURBULENT_N = 0.046, 0.2
 TD_LAMINAR_C, TD_LAMINAR_N = 16.0, 1.0
 _RE_FLOOR = 1e-8
-_LN7, _LN8, _LN37530 = math.log(7.0), math.log(8.0), math.log(37530.0)  # Churchill's constants, as logs
 
 
 def fanning_laminar(Re: torch.Tensor) -> torch.Tensor:
@@ -36,7 +35,7 @@ def fanning_blasius_td(Re: torch.Tensor) -> torch.Tensor:
     return torch.maximum(TD_LAMINAR_C / Re, TD_TURBULENT_C * Re.pow(-TD_TURBULENT_N))
 
 
-def fanning_churchill(Re: torch.Tensor, eD: torch.Tensor | float = 0.0) -> torch.Tensor:
+def fanning_churchill(Re: torch.Tensor | tuple[torch.Tensor, ...], eD: torch.Tensor | float = 0.0) -> torch.Tensor:
     r"""Churchill (1977) all-regime friction factor, returned as Fanning f.
 
     .. math::
@@ -45,19 +44,35 @@ def fanning_churchill(Re: torch.Tensor, eD: torch.Tensor | float = 0.0) -> torch
         B = \left(\frac{37530}{Re}\right)^{16},\quad f = f_D/4
 
     Source: Churchill, S.W. (1977), Chem. Eng. 84(24):91-92. Smooth in Re across the laminar,
-    transitional and fully rough regimes; Re > 0, eD = 0-0.05. Evaluated in log space so that
-    the 16th powers neither overflow nor underflow in float64.
+    transitional and fully rough regimes; Re > 0, eD = 0-0.05.
+
+    ``Re`` is a tensor, or a tuple of tensors whose product is Re (a per-state and a per-level
+    factor, as :attr:`LocalState.Re_L_parts <closure_nn.physics.local_state.LocalState.Re_L_parts>`
+    gives them): the three powers of Re are then formed on the factors and multiplied once, which
+    spares two transcendental functions per value on a grid of levels. A floor of 1e-8 applies
+    to the first factor (a zero flow rate). The powers of 1/Re are formed as exp(k ln(1/Re)) per
+    factor; (8/Re)^12 and (37530/Re)^16 stay within float64 for Re in 1e-8 to 1e18 and beyond
+    (underflow to zero where the other term dominates).
 
     >>> round(float(4 * fanning_churchill(torch.tensor(1e5, dtype=torch.float64), 1e-4)), 5)
     0.01846
     """
-    ln_re = torch.log(Re.clamp_min(_RE_FLOOR))  # ln(c/Re) = ln c - ln Re: one log for the three powers of Re
-    eD = torch.as_tensor(eD, dtype=ln_re.dtype)
-    inner = torch.exp(0.9 * (_LN7 - ln_re)) + 0.27 * eD  # (7/Re)^0.9 + 0.27 eD
+    parts = Re if isinstance(Re, tuple) else (Re,)
+    if len({p.shape for p in parts}) == 1 and len(parts) > 1:  # no broadcast to spare: one factor
+        parts = (math.prod(parts),)
+    ln_inv = [-torch.log(parts[0].clamp_min(_RE_FLOOR))] + [-torch.log(p) for p in parts[1:]]
+
+    def inv_power(c: float, k: float) -> torch.Tensor:  # (c / Re)^k = c^k prod_j (1/Re_j)^k
+        out = c**k * torch.exp(k * ln_inv[0])
+        for q in ln_inv[1:]:
+            out = out * torch.exp(k * q)
+        return out
+
     # below Re ~ 10 the log turns negative: A -> 0 there, where (8/Re)^12 dominates anyway
-    logA = 16 * torch.log((-2.457 * torch.log(inner)).clamp_min(1e-300))
-    logB = 16 * (_LN37530 - ln_re)
-    log_ab = torch.logaddexp(logA, logB)
-    # (8/Re)^12 + (A+B)^-1.5 in log space
-    log_sum = torch.logaddexp(12 * (_LN8 - ln_re), -1.5 * log_ab)
-    return 2.0 * torch.exp(log_sum / 12)  # 8 * [...]^(1/12) / 4
+    y = (-2.457 * torch.log(inv_power(7.0, 0.9) + 0.27 * eD)).clamp_min(0.0)
+    y2 = y * y
+    y4 = y2 * y2
+    y8 = y4 * y4
+    root = torch.rsqrt(y8 * y8 + inv_power(37530.0, 16.0))  # (A + B)^-1/2
+    total = inv_power(8.0, 12.0) + root * root * root  # (8/Re)^12 + (A + B)^-3/2
+    return 2.0 * torch.exp(torch.log(total) / 12)  # 8 * [...]^(1/12) / 4

@@ -43,37 +43,77 @@ FRAC_MAX = {STRATIFIED: 1.0, ANNULAR: 0.5}
 
 @dataclass(frozen=True)
 class SeparatedGeometry:
-    """Areas [m2] and perimeters [m] of a separated-flow cross section (shape ``(*batch)``).
+    """Cross section of separated flow (shape ``(*batch)``), stored dimensionless: areas as shares
+    of the pipe area A, perimeters per unit diameter D. A level-only quantity (``a_L``, ``s_L``...)
+    keeps the shape of ``frac``, so a grid of trial levels shared by many states is computed once
+    and broadcast against the states' D.
 
-    Derived quantities (hydraulic diameters, area) are computed once per object and cached."""
+    Dimensional areas [m2], perimeters [m] and hydraulic diameters [m] are derived on first use and
+    cached."""
 
     kind: str
     frac: torch.Tensor  # h/D (stratified) or delta/D (annular) [-]
-    D: torch.Tensor
-    A_L: torch.Tensor
-    A_G: torch.Tensor
-    S_L: torch.Tensor
-    S_G: torch.Tensor
-    S_i: torch.Tensor
+    D: torch.Tensor  # pipe diameter [m]
+    a_L: torch.Tensor  # A_L / A [-]
+    a_G: torch.Tensor  # A_G / A [-]
+    s_L: torch.Tensor  # S_L / D [-]
+    s_G: torch.Tensor  # S_G / D [-]
+    s_i: torch.Tensor  # S_i / D [-]
 
     @cached_property
     def area(self) -> torch.Tensor:
-        return self.A_L + self.A_G
+        """Pipe cross-section A = pi D^2 / 4 [m2]."""
+        return torch.pi * self.D**2 / 4
+
+    @cached_property
+    def A_L(self) -> torch.Tensor:
+        """Liquid layer or film area [m2]."""
+        return self.area * self.a_L
+
+    @cached_property
+    def A_G(self) -> torch.Tensor:
+        """Gas (core) area [m2]."""
+        return self.area * self.a_G
+
+    @cached_property
+    def S_L(self) -> torch.Tensor:
+        """Liquid-wetted perimeter [m]."""
+        return self.D * self.s_L
+
+    @cached_property
+    def S_G(self) -> torch.Tensor:
+        """Gas-wetted perimeter [m]."""
+        return self.D * self.s_G
+
+    @cached_property
+    def S_i(self) -> torch.Tensor:
+        """Interface width (stratified) or perimeter (annular) [m]."""
+        return self.D * self.s_i
+
+    @cached_property
+    def d_L(self) -> torch.Tensor:
+        """Liquid hydraulic diameter per pipe diameter, D_L / D = pi a_L / s_L [-]."""
+        return torch.pi * self.a_L / self.s_L
+
+    @cached_property
+    def d_G(self) -> torch.Tensor:
+        """Gas hydraulic diameter per pipe diameter, D_G / D = pi a_G / (s_G + s_i) [-]."""
+        return torch.pi * self.a_G / (self.s_G + self.s_i)
 
     @cached_property
     def D_L(self) -> torch.Tensor:
         """Liquid hydraulic diameter 4 A_L / S_L [m]."""
-        return 4 * self.A_L / self.S_L
+        return self.D * self.d_L
 
     @cached_property
     def D_G(self) -> torch.Tensor:
         """Gas hydraulic diameter 4 A_G / (S_G + S_i) [m]."""
-        return 4 * self.A_G / (self.S_G + self.S_i)
+        return self.D * self.d_G
 
-    @cached_property
+    @property
     def liquid_fraction(self) -> torch.Tensor:
         """Share of the cross section occupied by the liquid layer or film, A_L / A [-]."""
-        return self.A_L / self.area
+        return self.a_L
 
     @property
     def dAL_dh(self) -> torch.Tensor:
@@ -84,19 +124,19 @@ class SeparatedGeometry:
 def stratified(h_D: torch.Tensor, D: torch.Tensor) -> SeparatedGeometry:
     """Stratified geometry from the liquid height ratio h/D in (0, 1) [-] and diameter D [m].
 
-    Source: Taitel & Dukler (1976), AIChE J. 22(1):47-55, Appendix.
+    Source: Taitel & Dukler (1976), AIChE J. 22(1):47-55, Appendix (A_L/A = (beta - sin beta) / (2 pi),
+    S_L/D = beta/2, S_i/D = sin(beta/2)).
 
     >>> g = stratified(torch.tensor(0.5, dtype=torch.float64), torch.tensor(1.0, dtype=torch.float64))
     >>> round(float(g.A_L / g.area), 12), round(float(g.S_i), 12), round(float(g.S_L), 12)
     (0.5, 1.0, 1.570796326795)
     """
     beta = 2 * torch.acos((1 - 2 * h_D).clamp(-1.0, 1.0))
-    A_L = D**2 / 8 * (beta - torch.sin(beta))
-    A = torch.pi * D**2 / 4
-    S_L = D * beta / 2
+    a_L = (beta - torch.sin(beta)) / (2 * torch.pi)
+    s_L = beta / 2
     return SeparatedGeometry(
-        kind=STRATIFIED, frac=h_D, D=D, A_L=A_L, A_G=A - A_L, S_L=S_L,
-        S_G=torch.pi * D - S_L, S_i=D * torch.sin(beta / 2),
+        kind=STRATIFIED, frac=h_D, D=D, a_L=a_L, a_G=1 - a_L, s_L=s_L,
+        s_G=torch.pi - s_L, s_i=torch.sin(s_L),
     )
 
 
@@ -109,12 +149,11 @@ def annular(delta_D: torch.Tensor, D: torch.Tensor) -> SeparatedGeometry:
     >>> round(float(g.A_L / g.area), 6)  # 1 - (1 - 2*0.05)^2 = 0.19
     0.19
     """
-    A = torch.pi * D**2 / 4
     core = 1 - 2 * delta_D
-    A_G = A * core**2
+    a_G = core**2
     return SeparatedGeometry(
-        kind=ANNULAR, frac=delta_D, D=D, A_L=A - A_G, A_G=A_G, S_L=torch.pi * D,
-        S_G=torch.zeros_like(A), S_i=torch.pi * D * core,
+        kind=ANNULAR, frac=delta_D, D=D, a_L=1 - a_G, a_G=a_G, s_L=torch.full_like(core, torch.pi),
+        s_G=torch.zeros_like(core), s_i=torch.pi * core,
     )
 
 

@@ -30,13 +30,20 @@ _TINY = 1e-300
 
 @dataclass(frozen=True)
 class LocalState:
-    """Conditions + geometry + in-situ kinematics at one trial ``frac`` (all ``(*batch)``)."""
+    """Conditions + geometry + in-situ kinematics at one trial ``frac``.
+
+    Level-dependent fields (``u_L``, ``u_G``, Reynolds numbers) have the broadcast shape of the
+    conditions and ``frac``; ``q_L``, ``q_G`` and ``rho_core`` depend on the conditions only and keep
+    their shape, so that a residual on a grid of levels does per-state arithmetic once per state.
+    """
 
     cond: Conditions
     geom: SeparatedGeometry
     entrainment: torch.Tensor  # E [-], 0 for stratified
-    u_L: torch.Tensor  # in-situ liquid (film) velocity [m/s]
-    u_G: torch.Tensor  # in-situ gas (core) velocity [m/s]
+    q_L: torch.Tensor  # superficial velocity of the liquid layer or film, (1 - E) v_SL [m/s]
+    q_G: torch.Tensor  # superficial velocity of the gas (core), v_SG + E v_SL [m/s]
+    u_L: torch.Tensor  # in-situ liquid (film) velocity q_L / (A_L/A) [m/s]
+    u_G: torch.Tensor  # in-situ gas (core) velocity q_G / (A_G/A) [m/s]
     rho_core: torch.Tensor  # gas or gas-droplet core density [kg/m3]
 
     @property
@@ -44,14 +51,30 @@ class LocalState:
         return self.geom.kind
 
     @cached_property
+    def Re_L_parts(self) -> tuple[torch.Tensor, torch.Tensor]:
+        """Liquid Reynolds number on D_L as a per-state and a per-level factor [-]:
+        (rho_L q_L D / mu_L) and (D_L/D) / (A_L/A)."""
+        c, g = self.cond, self.geom
+        return c.rhol * c.D / c.mul * self.q_L, g.d_L / g.a_L
+
+    @cached_property
+    def Re_G_parts(self) -> tuple[torch.Tensor, torch.Tensor]:
+        """Gas (core) Reynolds number on D_G as a per-state and a per-level factor [-]:
+        (rho_C q_G D / mu_G) and (D_G/D) / (A_G/A)."""
+        c, g = self.cond, self.geom
+        return self.rho_core * c.D / c.mug * self.q_G, g.d_G / g.a_G
+
+    @cached_property
     def Re_L(self) -> torch.Tensor:
-        """Liquid Reynolds number on D_L [-]."""
-        return self.cond.rhol * self.u_L * self.geom.D_L / self.cond.mul
+        """Liquid Reynolds number on D_L [-], rho_L u_L D_L / mu_L."""
+        state, level = self.Re_L_parts
+        return state * level
 
     @cached_property
     def Re_G(self) -> torch.Tensor:
-        """Gas (core) Reynolds number on D_G [-]."""
-        return self.rho_core * self.u_G * self.geom.D_G / self.cond.mug
+        """Gas (core) Reynolds number on D_G [-], rho_C u_G D_G / mu_G."""
+        state, level = self.Re_G_parts
+        return state * level
 
     @property
     def holdup(self) -> torch.Tensor:
@@ -69,16 +92,13 @@ def local_state(cond: Conditions, frac: torch.Tensor, kind: str, entrainment: to
     ``entrainment`` E [-] is only used for ``kind == 'annular'``.
     """
     geom = separated(kind, frac, cond.D)
-    A = cond.area
     E = torch.as_tensor(entrainment, dtype=torch.float64) * (1.0 if kind == ANNULAR else 0.0)
-    # terms that do not depend on frac are computed on the conditions' shape, once per state,
-    # and broadcast (expanded views) to the shape of the trial levels
-    shape = broadcast_shape(frac.shape, cond.vsl.shape, E.shape)
+    # terms that do not depend on frac are computed on the conditions' shape, once per state
     q_e = E * cond.vsl  # entrained liquid flux, m/s superficial
-    core_flux = cond.vsg + q_e
-    rho_core = (cond.rhog * cond.vsg + cond.rhol * q_e) / core_flux.clamp_min(_TINY)
-    rho_core = torch.where(core_flux > 0, rho_core, cond.rhog * torch.ones_like(rho_core))
-    u_L = (cond.vsl - q_e) * A / geom.A_L
-    u_G = core_flux * A / geom.A_G
+    q_L = cond.vsl - q_e
+    q_G = cond.vsg + q_e
+    rho_core = (cond.rhog * cond.vsg + cond.rhol * q_e) / q_G.clamp_min(_TINY)
+    rho_core = torch.where(q_G > 0, rho_core, cond.rhog * torch.ones_like(rho_core))
     E = E.expand(broadcast_shape(E.shape, frac.shape))
-    return LocalState(cond=cond, geom=geom, entrainment=E, u_L=u_L, u_G=u_G, rho_core=rho_core.expand(shape))
+    return LocalState(cond=cond, geom=geom, entrainment=E, q_L=q_L, q_G=q_G, u_L=q_L / geom.a_L,
+                      u_G=q_G / geom.a_G, rho_core=rho_core)

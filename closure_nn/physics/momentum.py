@@ -50,11 +50,13 @@ def shear_stresses(s: LocalState, f: FrictionFactors) -> Stresses:
 
     rho_G is the core density in annular flow with entrainment. Units: [Pa].
     """
+    # u|u| = q|q| / a^2: per-state and per-level factors multiplied once each
     du = s.u_G - s.u_L
+    g = s.geom
     return Stresses(
-        tau_wl=0.5 * f.f_wl * s.cond.rhol * s.u_L * s.u_L.abs(),
-        tau_wg=0.5 * f.f_wg * s.rho_core * s.u_G * s.u_G.abs(),
-        tau_i=0.5 * f.f_i * s.rho_core * du * du.abs(),
+        tau_wl=f.f_wl * (0.5 * s.cond.rhol * s.q_L * s.q_L.abs()) * g.a_L.pow(-2),
+        tau_wg=f.f_wg * (0.5 * s.rho_core * s.q_G * s.q_G.abs()) * g.a_G.pow(-2),
+        tau_i=f.f_i * (0.5 * s.rho_core) * (du * du.abs()),
     )
 
 
@@ -106,9 +108,13 @@ def term_scale(terms: tuple[torch.Tensor, ...]) -> torch.Tensor:
 
 
 def combined_terms(s: LocalState, tau: Stresses) -> tuple[torch.Tensor, ...]:
-    r"""The four signed terms of :func:`combined_residual` [Pa/m], in its order."""
+    r"""The four signed terms of :func:`combined_residual` [Pa/m], in its order.
+
+    Per unit area S/A = (4 / (pi D)) (S/D) / (A/A_pipe): a per-state factor times a per-level one."""
     c, g = s.cond, s.geom
-    return (tau.tau_wg * g.S_G / g.A_G, -tau.tau_wl * g.S_L / g.A_L, tau.tau_i * g.S_i * (1 / g.A_L + 1 / g.A_G),
+    per_area = 4 / (torch.pi * c.D)  # [1/m]
+    return (tau.tau_wg * (per_area * (g.s_G / g.a_G)), -tau.tau_wl * (per_area * (g.s_L / g.a_L)),
+            tau.tau_i * (per_area * (g.s_i * (1 / g.a_L + 1 / g.a_G))),
             -(c.rhol - s.rho_core) * c.g * torch.sin(c.theta))
 
 
@@ -123,7 +129,8 @@ def combined_residual(s: LocalState, tau: Stresses) -> torch.Tensor:
     the equilibrium liquid levels. F -> -inf as h/D -> 0 and +inf as h/D -> 1 for positive
     rates, so an odd number of roots exists.
     """
-    return sum(combined_terms(s, tau))
+    wall_g, wall_l, interface, gravity = combined_terms(s, tau)
+    return wall_g + wall_l + interface + gravity
 
 
 class PressureGradient(NamedTuple):
@@ -147,7 +154,6 @@ def pressure_gradient(s: LocalState, tau: Stresses) -> PressureGradient:
     balance solved for dp/dx. Acceleration is neglected (steady, incompressible locally).
     """
     c, g = s.cond, s.geom
-    A = g.area
-    fric = (tau.tau_wl * g.S_L + tau.tau_wg * g.S_G) / A
-    grav = (c.rhol * g.A_L + s.rho_core * g.A_G) / A * c.g * torch.sin(c.theta)
+    fric = (tau.tau_wl * g.s_L + tau.tau_wg * g.s_G) * (4 / (torch.pi * c.D))  # S/A = 4 (S/D) / (pi D)
+    grav = (c.rhol * g.a_L + s.rho_core * g.a_G) * c.g * torch.sin(c.theta)
     return PressureGradient(total=fric + grav, friction=fric, gravity=grav)

@@ -12,10 +12,13 @@ from typing import Callable, Sequence
 
 import torch
 
+from ..allocator import keep_freed_memory
+
 
 def _call(item: tuple) -> object:
     fn, threads, args = item
     torch.set_num_threads(int(threads))
+    keep_freed_memory()  # a spawned process starts with glibc's defaults (closure_nn/allocator.py)
     return fn(*args)
 
 
