@@ -24,7 +24,7 @@ def _re_eD(s: LocalState, phase: str) -> tuple[tuple[torch.Tensor, torch.Tensor]
 
 def wall_taitel_dukler(s: LocalState, phase: str) -> torch.Tensor:
     """Taitel & Dukler (1976) smooth-wall Blasius constants, see :func:`fanning_blasius_td`. Ignores roughness."""
-    return fanning_blasius_td(s.Re_L if phase == "liquid" else s.Re_G)
+    return fanning_blasius_td(s.Re_L_parts if phase == "liquid" else s.Re_G_parts)
 
 
 def wall_churchill(s: LocalState, phase: str) -> torch.Tensor:

@@ -20,19 +20,37 @@ def fanning_laminar(Re: torch.Tensor) -> torch.Tensor:
     return 16.0 / Re.clamp_min(_RE_FLOOR)
 
 
-def fanning_blasius_td(Re: torch.Tensor) -> torch.Tensor:
+def fanning_blasius_td(Re: torch.Tensor | tuple[torch.Tensor, ...]) -> torch.Tensor:
     r"""Taitel & Dukler (1976) wall friction: :math:`f = \max(16\,Re^{-1},\ 0.046\,Re^{-0.2})`.
 
     Source: Taitel & Dukler (1976), AIChE J. 22(1):47-55, eqs. (5)-(6) with C = 0.046,
     n = 0.2 for turbulent and C = 16, n = 1 for laminar flow. Taking the larger branch switches
     to laminar below Re ~ 1490 where the two curves cross, which keeps f continuous (our choice;
     the paper switches on flow regime). Validity: smooth pipes, turbulent branch Re ~ 3e3-1e5.
+    ``Re`` as in :func:`fanning_churchill`: a tensor or a tuple of factors.
 
     >>> round(float(fanning_blasius_td(torch.tensor(1e5, dtype=torch.float64))), 6)
     0.0046
     """
-    Re = Re.clamp_min(_RE_FLOOR)
-    return torch.maximum(TD_LAMINAR_C / Re, TD_TURBULENT_C * Re.pow(-TD_TURBULENT_N))
+    parts = _re_factors(Re)
+    ln_inv = [-torch.log(p) for p in parts]
+    return torch.maximum(_inv_power(parts, ln_inv, TD_LAMINAR_C, TD_LAMINAR_N),
+                         _inv_power(parts, ln_inv, TD_TURBULENT_C, TD_TURBULENT_N))
+
+
+def _re_factors(Re: torch.Tensor | tuple[torch.Tensor, ...]) -> tuple[torch.Tensor, ...]:
+    """Re as a tuple of factors (one factor where they would not broadcast), the first floored."""
+    parts = Re if isinstance(Re, tuple) else (Re,)
+    if len(parts) > 1 and len({p.shape for p in parts}) == 1:  # no broadcast to spare: one factor
+        parts = (math.prod(parts[1:], start=parts[0]),)
+    return (parts[0].clamp_min(_RE_FLOOR),) + tuple(parts[1:])
+
+
+def _inv_power(parts: tuple[torch.Tensor, ...], ln_inv: list[torch.Tensor], coef: float, k: float) -> torch.Tensor:
+    """coef Re^-k = coef prod_j (1 / Re_j)^k on the factors Re_j of Re (``ln_inv`` = -ln Re_j):
+    1/Re_j for k = 1, else exp(k ln(1/Re_j))."""
+    terms = [1 / p for p in parts] if k == 1 else [torch.exp(k * q) for q in ln_inv]
+    return math.prod(terms[1:], start=coef * terms[0])
 
 
 def fanning_churchill(Re: torch.Tensor | tuple[torch.Tensor, ...], eD: torch.Tensor | float = 0.0) -> torch.Tensor:
@@ -57,16 +75,11 @@ def fanning_churchill(Re: torch.Tensor | tuple[torch.Tensor, ...], eD: torch.Ten
     >>> round(float(4 * fanning_churchill(torch.tensor(1e5, dtype=torch.float64), 1e-4)), 5)
     0.01846
     """
-    parts = Re if isinstance(Re, tuple) else (Re,)
-    if len({p.shape for p in parts}) == 1 and len(parts) > 1:  # no broadcast to spare: one factor
-        parts = (math.prod(parts),)
-    ln_inv = [-torch.log(parts[0].clamp_min(_RE_FLOOR))] + [-torch.log(p) for p in parts[1:]]
+    parts = _re_factors(Re)
+    ln_inv = [-torch.log(p) for p in parts]
 
-    def inv_power(c: float, k: float) -> torch.Tensor:  # (c / Re)^k = c^k prod_j (1/Re_j)^k
-        out = c**k * torch.exp(k * ln_inv[0])
-        for q in ln_inv[1:]:
-            out = out * torch.exp(k * q)
-        return out
+    def inv_power(c: float, k: float) -> torch.Tensor:  # (c / Re)^k
+        return _inv_power(parts, ln_inv, c**k, k)
 
     # below Re ~ 10 the log turns negative: A -> 0 there, where (8/Re)^12 dominates anyway
     y = (-2.457 * torch.log(inv_power(7.0, 0.9) + 0.27 * eD)).clamp_min(0.0)

@@ -56,9 +56,10 @@ from .momentum import FrictionFactors, PressureGradient, Stresses, combined_resi
 SELECT_RULES = ("thinnest", "thickest")
 MAX_ROOTS = 3
 #: states per chunk of the root finder (turn search and refinement vectorised over a chunk):
-#: 16,384 solves 1e5 states in the same CPU time as 65,536 and adds about half the memory to a
-#: 1e6-state solve (benchmarks/README.md, 2026-12-04)
-DEFAULT_CHUNK = 16384
+#: 65,536 solves 1e5 states about 1.5x faster than 16,384 with 2 threads (torch splits an
+#: operation over threads above 32,768 elements) and keeps a 1e6-state all-roots solve under
+#: 450 MB peak (benchmarks/README.md, 2026-12-04)
+DEFAULT_CHUNK = 65536
 #: states per chunk of the bracketing grid: a chunk's (GRID_CHUNK, n_grid) temporaries stay in
 #: cache (benchmarks/README.md)
 GRID_CHUNK = 4096
@@ -119,10 +120,16 @@ def residual_fn(cond: Conditions, closure: Callable, kind: str, entrainment) -> 
 
 
 def _subset_fn(cond: Conditions, E: torch.Tensor, closure: Callable, kind: str) -> Callable:
-    """F(idx, frac): the residual of states ``idx`` (LongTensor) of a flat batch ``(n,)`` at ``frac``."""
+    """F(idx, frac): the residual of states ``idx`` (LongTensor) of a flat batch ``(n,)`` at ``frac``.
+
+    The conditions of the last ``idx`` are kept: an iteration whose active set did not change
+    (the same tensor object) gathers nothing."""
+    last: dict = {}
 
     def F(idx: torch.Tensor, frac: torch.Tensor) -> torch.Tensor:
-        return residual_fn(cond[idx], closure, kind, E[idx])(frac)
+        if last.get("idx") is not idx:
+            last.update(idx=idx, F=residual_fn(cond[idx], closure, kind, E[idx]))
+        return last["F"](frac)
 
     return F
 
@@ -133,42 +140,45 @@ def _chandrupatla(F: Callable, a: torch.Tensor, b: torch.Tensor, fa: torch.Tenso
 
     ``F(idx, x)`` evaluates the residual of brackets ``idx`` at ``x``. Inverse quadratic
     interpolation where it is safe, bisection otherwise; the bracket always holds the root.
-    Source: Chandrupatla, T.R. (1997), Adv. Eng. Software 28(3):145-149. Only brackets not yet
-    narrower than ``xtol`` times the root (plus rounding) are evaluated and updated in each iteration.
+    Source: Chandrupatla, T.R. (1997), Adv. Eng. Software 28(3):145-149. A bracket leaves the
+    iteration once it is narrower than ``xtol`` times the root (plus rounding); the others are
+    kept compact, so each iteration evaluates and updates only brackets still open.
     """
     eps = torch.finfo(a.dtype).eps
+    out = torch.empty_like(a)
     # Chandrupatla's naming: a = newest point, b = its bracket partner, c = previous point
-    b, fb, a, fa = a.clone(), fa.clone(), b.clone(), fb.clone()
-    c, fc = b.clone(), fb.clone()
+    b, fb, a, fa = a, fa, b, fb
+    c, fc = b, fb
     t = torch.full_like(a, 0.5)
     xm = torch.where(fa.abs() < fb.abs(), a, b)
-    act = torch.arange(a.numel())
+    act = torch.arange(a.numel())  # positions of the open brackets
     for _ in range(max_iter):
-        A, FA, Bb, FB, C, FC, T = a[act], fa[act], b[act], fb[act], c[act], fc[act], t[act]
-        xt = A + T * (Bb - A)
+        xt = a + t * (b - a)
         ft = F(act, xt)
-        same = torch.signbit(ft) == torch.signbit(FA)
-        C, FC = torch.where(same, A, Bb), torch.where(same, FA, FB)
-        Bb, FB = torch.where(same, Bb, A), torch.where(same, FB, FA)
-        A, FA = xt, ft
-        a_best = FA.abs() < FB.abs()
-        XM = torch.where(a_best, A, Bb)
-        FM = torch.where(a_best, FA, FB)
-        tol = (2 * eps + xtol) * XM.abs()  # relative: a thin film's root as precise as a thick one's
-        tlim = tol / (Bb - A).abs().clamp_min(1e-300)
-        done = (tlim > 0.5) | (FM == 0)
-        xi = (A - Bb) / (C - Bb)
-        phi = (FA - FB) / (FC - FB)
+        same = torch.signbit(ft) == torch.signbit(fa)
+        c, fc = torch.where(same, a, b), torch.where(same, fa, fb)
+        b, fb = torch.where(same, b, a), torch.where(same, fb, fa)
+        a, fa = xt, ft
+        a_best = fa.abs() < fb.abs()
+        xm = torch.where(a_best, a, b)
+        fm = torch.where(a_best, fa, fb)
+        tol = (2 * eps + xtol) * xm.abs()  # relative: a thin film's root as precise as a thick one's
+        tlim = tol / (b - a).abs().clamp_min(1e-300)
+        done = (tlim > 0.5) | (fm == 0)
+        xi = (a - b) / (c - b)
+        phi = (fa - fb) / (fc - fb)
         iqi = (phi**2 < xi) & ((1 - phi) ** 2 < 1 - xi)
-        t_iqi = FA / (FB - FA) * FC / (FB - FC) + (C - A) / (Bb - A) * FA / (FC - FA) * FB / (FC - FB)
-        T = torch.where(iqi & torch.isfinite(t_iqi), t_iqi, torch.full_like(T, 0.5))
-        T = torch.minimum(1 - tlim, torch.maximum(tlim, T)).clamp(0.0, 1.0)
-        for full, part in ((a, A), (fa, FA), (b, Bb), (fb, FB), (c, C), (fc, FC), (t, T), (xm, XM)):
-            full[act] = part
-        act = act[~done]
-        if act.numel() == 0:
-            break
-    return xm
+        t_iqi = fa / (fb - fa) * fc / (fb - fc) + (c - a) / (b - a) * fa / (fc - fa) * fb / (fc - fb)
+        t = torch.where(iqi & torch.isfinite(t_iqi), t_iqi, torch.full_like(t, 0.5))
+        t = torch.minimum(1 - tlim, torch.maximum(tlim, t)).clamp(0.0, 1.0)
+        if bool(done.any()):
+            out[act[done]] = xm[done]
+            keep = ~done
+            act, a, fa, b, fb, c, fc, t, xm = (v[keep] for v in (act, a, fa, b, fb, c, fc, t, xm))
+            if act.numel() == 0:
+                break
+    out[act] = xm  # brackets still open after max_iter: their best point
+    return out
 
 
 def _turn_search(F: Callable, a: torch.Tensor, m: torch.Tensor, c: torch.Tensor, ga: torch.Tensor,
@@ -241,14 +251,16 @@ def _grid_pass(cond: Conditions, E: torch.Tensor, closure: Callable, kind: str, 
     b = cond.shape[0]
     # the grid as one row (1, n_grid): the geometry of the levels is computed once per chunk
     Fg = residual_fn(cond.unsqueeze(-1), closure, kind, E.unsqueeze(-1))(grid.unsqueeze(0)).expand(b, -1)
-    sgn = torch.signbit(Fg)
+    flip = torch.signbit(Fg[:, 1:]) ^ torch.signbit(Fg[:, :-1])  # the sign differs across the cell
     valid = torch.isfinite(Fg)
-    change = (sgn[:, 1:] != sgn[:, :-1]) & valid[:, 1:] & valid[:, :-1]
+    change = flip & valid[:, 1:] & valid[:, :-1]
     rows, cells = change.nonzero(as_tuple=True)
     # sign-preserving local minima of |F| on the grid: a root pair may sit between the neighbours
+    # (a NaN or infinite middle value fails the comparisons, so needs no mask of its own)
     absF = Fg.abs()
-    turn = ((sgn[:, 1:-1] == sgn[:, :-2]) & (sgn[:, 1:-1] == sgn[:, 2:]) & valid[:, :-2] & valid[:, 1:-1]
-            & valid[:, 2:] & (absF[:, 1:-1] < absF[:, :-2]) & (absF[:, 1:-1] <= absF[:, 2:]))
+    mid = absF[:, 1:-1]
+    turn = (~(flip[:, :-1] | flip[:, 1:]) & valid[:, :-2] & valid[:, 2:] & (mid < absF[:, :-2])
+            & (mid <= absF[:, 2:]))
     t_rows, t_j = turn.nonzero(as_tuple=True)
     j = t_j + 1
     return ((rows, grid[cells], grid[cells + 1], Fg[rows, cells], Fg[rows, cells + 1]),
@@ -377,13 +389,25 @@ def solve_separated(
     return separated_solution(cond, closure, kind, entrainment, pick, found, rs)
 
 
+def _tracks_grad(cond: Conditions, closure: Callable, entrainment) -> bool | None:
+    """True when the residual of these conditions and closure depends on a tensor that requires
+    grad (a condition, the entrainment or a parameter of the closure); None when that is not
+    known (a closure may hold such tensors outside its parameters)."""
+    if any(t.requires_grad for t in cond.as_dict().values()) or (
+            isinstance(entrainment, torch.Tensor) and entrainment.requires_grad):
+        return True
+    params = closure.parameters() if isinstance(closure, torch.nn.Module) else ()
+    return True if any(p.requires_grad for p in params) else None
+
+
 def separated_solution(cond: Conditions, closure: Callable, kind: str, entrainment, pick: torch.Tensor,
                        found: torch.Tensor, rs: RootSet) -> SeparatedSolution:
     """The :class:`SeparatedSolution` at the chosen roots ``pick`` (B,) [-]: implicit gradients
     attached, state, friction, stresses and pgrad evaluated there (a finite placeholder, 0.5 of
     frac_max, where ``found`` is False)."""
     pick = torch.where(found, pick, torch.full_like(pick, 0.5 * FRAC_MAX[kind]))
-    frac = attach_implicit_grad(pick, residual_fn(cond, closure, kind, entrainment))
+    frac = attach_implicit_grad(pick, residual_fn(cond, closure, kind, entrainment),
+                                needs_grad=_tracks_grad(cond, closure, entrainment))
     s = local_state(cond, frac, kind, entrainment)
     f = closure(s)
     tau = shear_stresses(s, f)

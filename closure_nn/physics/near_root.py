@@ -62,16 +62,14 @@ def stencil_roots(cond: Conditions, closure: Callable, kind: str, guess: torch.T
         pts = (x0[:, None] * torch.exp(offsets)).clamp(lo, hi)
         ends = torch.ones(B, 1, dtype=torch.float64)
         pts = torch.cat([lo * ends, pts, hi * ends], dim=1)
-        F = residual_fn(cond.unsqueeze(-1), closure, kind, E.unsqueeze(-1))(pts)
-        sgn, valid = torch.signbit(F), torch.isfinite(F)
-        change = (sgn[:, 1:] != sgn[:, :-1]) & valid[:, 1:] & valid[:, :-1] & (pts[:, 1:] > pts[:, :-1])
-        has = change.any(dim=1) & use
+        F, first = _leftmost_change(cond, E, closure, kind, pts, use)
+        has = first >= 0
         roots = torch.full((B, MAX_ROOTS), float("nan"), dtype=torch.float64)
         n_roots = torch.zeros(B, dtype=torch.int64)
         unresolved = torch.zeros(B, dtype=torch.bool)
         rows = has.nonzero(as_tuple=True)[0]
         if rows.numel():
-            k = change[rows].to(torch.int8).argmax(dim=1)  # first sign change of each row
+            k = first[rows]
             a, b = pts[rows, k], pts[rows, k + 1]
             roots[rows, 0] = _chandrupatla(_subset_fn(cond[rows], E[rows], closure, kind), a, b,
                                            F[rows, k], F[rows, k + 1], xtol, max_iter)
@@ -81,6 +79,31 @@ def stencil_roots(cond: Conditions, closure: Callable, kind: str, guess: torch.T
             rs = find_roots(cond[rest], closure, kind, E[rest], n_grid, xtol, max_iter)
             roots[rest], n_roots[rest], unresolved[rest] = rs.roots, rs.n_roots, rs.unresolved
     return RootSet(roots=roots, n_roots=n_roots, unresolved=unresolved)
+
+
+def _leftmost_change(cond: Conditions, E: torch.Tensor, closure: Callable, kind: str, pts: torch.Tensor,
+                     use: torch.Tensor) -> tuple[torch.Tensor, torch.Tensor]:
+    """The residual on the stencil ``pts`` (B, P), evaluated from the left, point by point, for the rows
+    ``use`` whose sign change is not found yet; and each row's first cell k with a sign change
+    between points k and k+1 (both finite, k+1 right of k), -1 where none. The same cell as a
+    whole-stencil evaluation gives, with the closure evaluated only up to it (about half the points
+    for a root near the guess). Residuals right of the cell are left NaN."""
+    B, P = pts.shape
+    F = torch.full((B, P), float("nan"), dtype=torch.float64)
+    first = torch.full((B,), -1, dtype=torch.int64)
+    rows = use.nonzero(as_tuple=True)[0]
+    for k in range(P):
+        if rows.numel() == 0:
+            break
+        F[rows, k] = residual_fn(cond[rows], closure, kind, E[rows])(pts[rows, k])
+        if k == 0:
+            continue
+        f0, f1 = F[rows, k - 1], F[rows, k]
+        change = ((torch.signbit(f0) != torch.signbit(f1)) & torch.isfinite(f0) & torch.isfinite(f1)
+                  & (pts[rows, k] > pts[rows, k - 1]))
+        first[rows[change]] = k - 1
+        rows = rows[~change]
+    return F, first
 
 
 def solve_separated_near(cond: Conditions, closure: Callable, guess: torch.Tensor, kind: str = STRATIFIED,
