@@ -92,13 +92,17 @@ def local_state(cond: Conditions, frac: torch.Tensor, kind: str, entrainment: to
     ``entrainment`` E [-] is only used for ``kind == 'annular'``.
     """
     geom = separated(kind, frac, cond.D)
-    E = torch.as_tensor(entrainment, dtype=torch.float64) * (1.0 if kind == ANNULAR else 0.0)
-    # terms that do not depend on frac are computed on the conditions' shape, once per state
-    q_e = E * cond.vsl  # entrained liquid flux, m/s superficial
-    q_L = cond.vsl - q_e
-    q_G = cond.vsg + q_e
-    rho_core = (cond.rhog * cond.vsg + cond.rhol * q_e) / q_G.clamp_min(_TINY)
-    rho_core = torch.where(q_G > 0, rho_core, cond.rhog * torch.ones_like(rho_core))
+    E = torch.as_tensor(entrainment, dtype=torch.float64)
+    if kind == ANNULAR:
+        # terms that do not depend on frac are computed on the conditions' shape, once per state
+        q_e = E * cond.vsl  # entrained liquid flux, m/s superficial
+        q_L = cond.vsl - q_e
+        q_G = cond.vsg + q_e
+        rho_core = (cond.rhog * cond.vsg + cond.rhol * q_e) / q_G.clamp_min(_TINY)
+        rho_core = torch.where(q_G > 0, rho_core, cond.rhog * torch.ones_like(rho_core))
+    else:  # stratified: no entrainment, the gas alone above the layer
+        E = torch.zeros((), dtype=torch.float64).expand(E.shape)
+        q_L, q_G, rho_core = cond.vsl, cond.vsg, cond.rhog
     E = E.expand(broadcast_shape(E.shape, frac.shape))
     return LocalState(cond=cond, geom=geom, entrainment=E, q_L=q_L, q_G=q_G, u_L=q_L / geom.a_L,
                       u_G=q_G / geom.a_G, rho_core=rho_core)

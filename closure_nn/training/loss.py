@@ -215,7 +215,7 @@ class ClosureLoss(nn.Module):
         if cfg.select == "thinnest":
             # the root refined from the level at the measured holdup (all roots where there is none,
             # or where the row's configuration was predicted as another than it was stored with):
-            # the closure is evaluated at 9 levels per row instead of the 40 of the bracketing grid
+            # the closure is evaluated at 6-9 levels per row instead of the 40 of the bracketing grid
             same = batch["kind"][data] == CONFIGURATION_CODE[kind]
             frac_meas = batch.get("frac_measured")
             if frac_meas is None:
