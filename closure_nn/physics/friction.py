@@ -1,7 +1,8 @@
 r"""Single-phase Fanning friction factors (f = tau_w / (rho u^2 / 2); Darcy factor = 4 f).
 
 All functions take Reynolds number Re [-] and relative roughness eD = roughness / D_h [-] as
-tensors and are smooth or continuous in Re, so a holdup root finder sees a continuous equation.
+tensors (the two wall laws of the closures also Re as a tuple of factors whose product is Re) and
+are smooth or continuous in Re, so a holdup root finder sees a continuous equation.
 """
 from __future__ import annotations
 
