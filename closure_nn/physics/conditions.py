@@ -76,6 +76,10 @@ class Conditions:
         return Conditions(**{f.name: fn(getattr(self, f.name)) for f in fields(self)})
 
     def __getitem__(self, idx) -> "Conditions":
+        if isinstance(idx, torch.Tensor) and idx.dim() == 1 and idx.dtype == torch.int64:
+            # positions along the first dimension: index_select, ~4x faster than t[idx]
+            # (benchmarks/bench_op_costs.py)
+            return self.map(lambda t: t.index_select(0, idx))
         return self.map(lambda t: t[idx])
 
     def unsqueeze(self, dim: int) -> "Conditions":

@@ -128,7 +128,7 @@ def _subset_fn(cond: Conditions, E: torch.Tensor, closure: Callable, kind: str) 
 
     def F(idx: torch.Tensor, frac: torch.Tensor) -> torch.Tensor:
         if last.get("idx") is not idx:
-            last.update(idx=idx, F=residual_fn(cond[idx], closure, kind, E[idx]))
+            last.update(idx=idx, F=residual_fn(cond[idx], closure, kind, E.index_select(0, idx)))
         return last["F"](frac)
 
     return F
@@ -172,9 +172,11 @@ def _chandrupatla(F: Callable, a: torch.Tensor, b: torch.Tensor, fa: torch.Tenso
         t = torch.where(iqi & torch.isfinite(t_iqi), t_iqi, torch.full_like(t, 0.5))
         t = torch.minimum(1 - tlim, torch.maximum(tlim, t)).clamp(0.0, 1.0)
         if bool(done.any()):
-            out[act[done]] = xm[done]
-            keep = ~done
-            act, a, fa, b, fb, c, fc, t, xm = (v[keep] for v in (act, a, fa, b, fb, c, fc, t, xm))
+            # positions gathered with index_select: a boolean mask per tensor costs ~20x more
+            # (benchmarks/bench_op_costs.py)
+            fin, keep = done.nonzero().squeeze(1), (~done).nonzero().squeeze(1)
+            out.index_put_((act.index_select(0, fin),), xm.index_select(0, fin))
+            act, a, fa, b, fb, c, fc, t, xm = (v.index_select(0, keep) for v in (act, a, fa, b, fb, c, fc, t, xm))
             if act.numel() == 0:
                 break
     out[act] = xm  # brackets still open after max_iter: their best point
