@@ -4,9 +4,9 @@ The cost model behind the solver's speed (benchmarks/README.md, "Issue 17: where
 the root finder's grid pass works on chunks of 4,096 states x 40 levels (163,840 float64 values),
 so each row below times one operation on a tensor of that size (median of ``--repeats`` calls,
 inputs warm in cache, glibc malloc kept from returning freed memory as the command line does).
-A second table times the default closure network (closure_nn.closures.neural.NeuralClosure,
-hidden 64 x 64) per row, forward without gradients and forward + backward, in float64 and, for
-comparison only, in float32 (closure-nn trains and solves in float64).
+A second table times the branches of the default closure network (conf/model/correction.yaml:
+one 64 x 64 branch per friction factor) per row, forward without gradients and forward +
+backward, in float64 and, for comparison only, in float32 (closure-nn trains and solves in float64).
 
 Run: .venv/bin/python benchmarks/bench_op_costs.py [--threads 1] [--repeats 50]
 """
@@ -17,6 +17,7 @@ import copy
 import os
 import platform
 import time
+from pathlib import Path
 
 import torch
 
@@ -55,19 +56,26 @@ def op_rows(repeats: int) -> list[tuple[str, float]]:
 
 
 def network_rows(repeats: int) -> list[tuple[str, float]]:
+    """The branches of the default model (conf/model/correction.yaml: one 64 x 64 branch per
+    friction factor), per row of input features."""
+    from omegaconf import OmegaConf
+
     from closure_nn.closures.neural import NeuralClosure
 
-    net = NeuralClosure(hidden=(64, 64))
-    mlps = [m for m in net.modules() if isinstance(m, torch.nn.Sequential)]
+    m = OmegaConf.to_container(OmegaConf.load(Path(__file__).parents[1] / "conf" / "model" / "correction.yaml"))
+    net = NeuralClosure(hidden=m["hidden"], activation=m["activation"], mode=m["mode"], bound=m["bound"],
+                        inputs=m["inputs"], learn=m["learn"], base_input=m["base_input"])
+    mlps = [mod for mod in net.modules() if isinstance(mod, torch.nn.Sequential)]
     rows = 24576
-    x = torch.rand(rows, mlps[0][0].in_features, dtype=torch.float64)
+    xs = [torch.rand(rows, mlp[0].in_features, dtype=torch.float64) for mlp in mlps]
     out = []
     with torch.no_grad():
-        out.append(("forward, float64, no gradient", median_us(lambda: [m(x) for m in mlps], repeats) / rows))
-        m32, x32 = [copy.deepcopy(m).float() for m in mlps], x.float()
-        out.append(("forward, float32, no gradient", median_us(lambda: [m(x32) for m in m32], repeats) / rows))
-    xg = x.clone().requires_grad_(True)
-    out.append(("forward + backward, float64", median_us(lambda: sum(m(xg).sum() for m in mlps).backward(), repeats) / rows))
+        out.append(("forward, float64, no gradient", median_us(lambda: [f(x) for f, x in zip(mlps, xs)], repeats) / rows))
+        m32, x32 = [copy.deepcopy(f).float() for f in mlps], [x.float() for x in xs]
+        out.append(("forward, float32, no gradient", median_us(lambda: [f(x) for f, x in zip(m32, x32)], repeats) / rows))
+    xg = [x.clone().requires_grad_(True) for x in xs]
+    out.append(("forward + backward, float64",
+                median_us(lambda: sum(f(x).sum() for f, x in zip(mlps, xg)).backward(), repeats) / rows))
     return out
 
 
@@ -85,7 +93,7 @@ def main() -> None:
     print(f"| operation on {N:,} float64 values | us | ns per value | x the cost of x * y |\n|---|---|---|---|")
     for name, us in rows:
         print(f"| `{name}` | {us:.0f} | {us * 1e3 / N:.2f} | {us / mul:.1f} |")
-    print("\n| closure network, hidden 64 x 64 | us per row |\n|---|---|")
+    print("\n| closure network of conf/model/correction.yaml (three 64 x 64 branches) | us per row |\n|---|---|")
     for name, us in network_rows(max(5, a.repeats // 5)):
         print(f"| {name} | {us:.2f} |")
 
