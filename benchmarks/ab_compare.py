@@ -4,7 +4,7 @@ On shared or noisy machines, runs of one script in separate processes differ by 
 (benchmarks/README.md); two versions timed alternately in one process see the same machine state.
 The revision's ``closure_nn`` is extracted with ``git archive`` into a temporary folder under
 another package name (the package imports itself only relatively, so it loads beside the working
-tree's), then both are timed on the same inputs, ``--rounds`` times in alternating order:
+tree's), then both are timed on the same inputs, ``--repeats`` times in alternating order:
 
 * ``roots``: ``find_roots`` and ``solve_points`` on ``--n`` random states (the states and the
   closure of benchmarks/bench_point_solver.py: Churchill wall, Andritsos-Hanratty interface);
@@ -12,7 +12,7 @@ tree's), then both are timed on the same inputs, ``--rounds`` times in alternati
 * ``line``: ``run_line`` on the line of benchmarks/bench_line.py (5,000 stations, baseline +
   learned-style + 5 members, inlet pressure given).
 
-Run: .venv/bin/python benchmarks/ab_compare.py REV [--what roots|line] [--threads 1] [--rounds 6]
+Run: .venv/bin/python benchmarks/ab_compare.py REV [--what roots|line] [--threads 1] [--repeats 6]
 """
 from __future__ import annotations
 
@@ -98,7 +98,7 @@ def main() -> None:
     ap.add_argument("--what", choices=("roots", "line"), default="roots")
     ap.add_argument("--n", type=int, default=100_000)
     ap.add_argument("--threads", type=int, default=1)
-    ap.add_argument("--rounds", type=int, default=6)
+    ap.add_argument("--repeats", type=int, default=6)
     a = ap.parse_args()
     keep_freed_memory()
     torch.set_num_threads(a.threads)
@@ -108,13 +108,13 @@ def main() -> None:
         runs = {a.rev: make(old), "working tree": make("closure_nn")}
         times: dict[str, dict[str, list[float]]] = {k: {} for k in runs}
         outs = {}
-        for i in range(a.rounds):
+        for i in range(a.repeats):
             for who in (list(runs) if i % 2 == 0 else list(runs)[::-1]):
                 res = runs[who]()
                 outs[who] = res.pop("_out")
                 for k, v in res.items():
                     times[who].setdefault(k, []).append(v)
-    print(f"{a.what}, {a.threads} thread(s), {a.rounds} alternating rounds, medians (each round in brackets)")
+    print(f"{a.what}, {a.threads} thread(s), {a.repeats} alternating repeats, medians (each repeat in brackets)")
     print(f"| measure | {a.rev} | working tree | ratio |\n|---|---|---|---|")
     for k in times[a.rev]:
         o, w = statistics.median(times[a.rev][k]), statistics.median(times["working tree"][k])
