@@ -12,6 +12,8 @@ tree's), then both are timed on the same inputs, ``--repeats`` times in alternat
 * ``line``: ``run_line`` on the line of benchmarks/bench_line.py (5,000 stations, baseline +
   learned-style + 5 members, inlet pressure given).
 
+The states and the line are built by those two scripts, with the revision's own constructors.
+
 Run: .venv/bin/python benchmarks/ab_compare.py REV [--what roots|line] [--threads 1] [--repeats 6]
 """
 from __future__ import annotations
@@ -25,8 +27,9 @@ import tempfile
 import time
 from pathlib import Path
 
-import numpy as np
 import torch
+from bench_line import bench_line
+from bench_point_solver import CLOSURE, random_states
 
 from closure_nn.allocator import keep_freed_memory
 
@@ -45,12 +48,8 @@ def load_revision(rev: str, into: Path) -> str:
 
 def roots_case(pkg: str, n: int):
     m = lambda name: importlib.import_module(f"{pkg}.{name}")  # noqa: E731
-    g = torch.Generator().manual_seed(0)
-    r = lambda: torch.rand(n, generator=g, dtype=torch.float64)  # noqa: E731
-    cond = m("physics.conditions").make_conditions(
-        vsl=10 ** (-3 + 3 * r()), vsg=10 ** (-1 + 2.5 * r()), D=0.025 + 0.5 * r(), theta=torch.deg2rad(-10 + 20 * r()),
-        roughness=5e-5 * r(), rhol=700 + 300 * r(), rhog=1 + 50 * r(), mul=10 ** (-3.3 + 1.5 * r()))
-    closure = m("closures.baseline").BaselineClosure(wall="churchill", interface="andritsos_hanratty")
+    cond = random_states(n, 0, m("physics.conditions").make_conditions)
+    closure = m("closures.baseline").BaselineClosure(**CLOSURE)
     find_roots, solve_points = m("physics.holdup_roots").find_roots, m("physics.point").solve_points
 
     def run() -> dict:
@@ -67,22 +66,11 @@ def roots_case(pkg: str, n: int):
 
 def line_case(pkg: str):
     m = lambda name: importlib.import_module(f"{pkg}.{name}")  # noqa: E731
-    d, march, run_line = m("line.definition"), m("line.march"), m("line.run").run_line
-    Closure = m("closures.baseline").BaselineClosure
-
-    def line(n: int, length: float):  # the line of benchmarks/bench_line.py (invented profile), inlet pressure
-        rng = np.random.default_rng(7)
-        s = np.linspace(0.0, length, n)
-        z = 40 * np.sin(2 * np.pi * s / 7000) + 15 * np.sin(2 * np.pi * s / 1900) + np.cumsum(rng.normal(0, 0.3, s.size))
-        fluid = d.FluidSpec(rhol=735.0, mul=5.5e-4, sigma=0.012, M_g=0.0194, Z=0.89, mug=1.3e-5)
-        return d.LineDefinition(name="benchmark line (invented)", distance=s, elevation=z, D=np.full(n - 1, 0.3048),
-                                roughness=np.full(n - 1, 4.5e-5), T=np.linspace(331.15, 289.15, n), fluid=fluid,
-                                m_gas=14.0, m_liquid=2.7, boundary="inlet", p_boundary=75e5, invented=True)
-
-    full = line(5000, 50_000.0)
+    march, run_line, Closure = m("line.march"), m("line.run").run_line, m("closures.baseline").BaselineClosure
+    full = bench_line(5000, 50_000.0, "inlet", m("line.definition"))
     closures = {"baseline": Closure(), "learned": Closure(interface_kwargs={"coef": 12.0})}
     members = [Closure(interface_kwargs={"coef": 10.0 + 2.0 * i}) for i in range(5)]
-    run_line(line(50, 1000.0), {"warm": Closure()})
+    run_line(bench_line(50, 1000.0, "inlet", m("line.definition")), {"warm": Closure()})  # warm-up
 
     def run() -> dict:
         t0 = time.perf_counter()

@@ -25,13 +25,16 @@ from closure_nn.line.march import MarchSettings
 from closure_nn.line.run import run_line
 
 
-def bench_line(n_stations: int, length: float, boundary: str) -> LineDefinition:
+def bench_line(n_stations: int, length: float, boundary: str, definition=None) -> LineDefinition:
+    """The benchmark line; ``definition``: the closure_nn.line.definition module to build it with
+    (benchmarks/ab_compare.py passes an earlier revision's), this tree's by default."""
+    FS, LD = (FluidSpec, LineDefinition) if definition is None else (definition.FluidSpec, definition.LineDefinition)
     rng = np.random.default_rng(7)
     s = np.linspace(0.0, length, n_stations)
     z = 40 * np.sin(2 * np.pi * s / 7000) + 15 * np.sin(2 * np.pi * s / 1900) + np.cumsum(rng.normal(0, 0.3, s.size))
     n = n_stations - 1
-    fluid = FluidSpec(rhol=735.0, mul=5.5e-4, sigma=0.012, M_g=0.0194, Z=0.89, mug=1.3e-5)
-    return LineDefinition(name="benchmark line (invented)", distance=s, elevation=z, D=np.full(n, 0.3048),
+    fluid = FS(rhol=735.0, mul=5.5e-4, sigma=0.012, M_g=0.0194, Z=0.89, mug=1.3e-5)
+    return LD(name="benchmark line (invented)", distance=s, elevation=z, D=np.full(n, 0.3048),
                           roughness=np.full(n, 4.5e-5), T=np.linspace(331.15, 289.15, n_stations), fluid=fluid,
                           m_gas=14.0, m_liquid=2.7, boundary=boundary, p_boundary=38e5 if boundary == "outlet" else 75e5,
                           invented=True)

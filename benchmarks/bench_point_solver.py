@@ -41,10 +41,12 @@ from closure_nn.physics.point import solve_points
 CLOSURE = dict(wall="churchill", interface="andritsos_hanratty")
 
 
-def random_states(n: int, seed: int = 0):
+def random_states(n: int, seed: int = 0, make=make_conditions):
+    """``n`` random states (``make``: the make_conditions of the closure_nn to time; benchmarks/ab_compare.py
+    passes an earlier revision's)."""
     g = torch.Generator().manual_seed(seed)
     r = lambda: torch.rand(n, generator=g, dtype=torch.float64)  # noqa: E731
-    return make_conditions(
+    return make(
         vsl=10 ** (-3 + 3 * r()), vsg=10 ** (-1 + 2.5 * r()), D=0.025 + 0.5 * r(),
         theta=torch.deg2rad(-10 + 20 * r()), roughness=5e-5 * r(), rhol=700 + 300 * r(),
         rhog=1 + 50 * r(), mul=10 ** (-3.3 + 1.5 * r()),
