@@ -35,9 +35,9 @@ def bench_line(n_stations: int, length: float, boundary: str, definition=None) -
     n = n_stations - 1
     fluid = FS(rhol=735.0, mul=5.5e-4, sigma=0.012, M_g=0.0194, Z=0.89, mug=1.3e-5)
     return LD(name="benchmark line (invented)", distance=s, elevation=z, D=np.full(n, 0.3048),
-                          roughness=np.full(n, 4.5e-5), T=np.linspace(331.15, 289.15, n_stations), fluid=fluid,
-                          m_gas=14.0, m_liquid=2.7, boundary=boundary, p_boundary=38e5 if boundary == "outlet" else 75e5,
-                          invented=True)
+              roughness=np.full(n, 4.5e-5), T=np.linspace(331.15, 289.15, n_stations), fluid=fluid,
+              m_gas=14.0, m_liquid=2.7, boundary=boundary, p_boundary=38e5 if boundary == "outlet" else 75e5,
+              invented=True)
 
 
 def main() -> None:
