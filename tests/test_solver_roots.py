@@ -20,6 +20,7 @@ from scipy.optimize import brentq, minimize_scalar
 
 from closure_nn.closures.baseline import BaselineClosure
 from closure_nn.physics.conditions import FIELD_NAMES, make_conditions
+from closure_nn.physics import holdup_roots
 from closure_nn.physics.holdup_roots import find_roots, solve_separated
 from closure_nn.physics.local_state import local_state
 from closure_nn.physics.momentum import combined_residual, shear_stresses
@@ -128,11 +129,12 @@ def test_results_equal_the_earlier_solver_where_its_root_count_was_right(name):
         assert len(_scan_roots(cond[i:i + 1], closure)) == int(sol.n_roots[i])
 
 
-def test_results_do_not_depend_on_the_chunk_size():
+def test_results_do_not_depend_on_the_chunk_size(monkeypatch):
     snap = _read("solver_snapshot_v0.csv")
     cond = _conditions(snap)
     closure = CLOSURES["churchill_ah"]
     a = find_roots(cond, closure, chunk=4096)
+    monkeypatch.setattr(holdup_roots, "REFINE_CHUNK", 29)  # brackets refined 29 at a time
     b = find_roots(cond, closure, chunk=97, grid_chunk=13)
     assert torch.equal(a.n_roots, b.n_roots) and torch.equal(a.unresolved, b.unresolved)
     np.testing.assert_allclose(a.roots.numpy(), b.roots.numpy(), atol=1e-11, rtol=0, equal_nan=True)

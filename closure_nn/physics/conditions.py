@@ -132,8 +132,9 @@ def make_conditions(
     """Build a :class:`Conditions` batch from scalars, arrays or tensors.
 
     Defaults are air-water near 20 degC and 1 atm (handbook values, e.g. Perry's, 8th ed.).
-    Inputs are converted to float64 and broadcast to one shape. No validation happens here
-    (see :func:`closure_nn.physics.checks.check_conditions`).
+    Inputs are converted to float64 and broadcast to one shape; a single value stays one number
+    seen through a stride-0 view (read-only: build new conditions with :meth:`Conditions.with_`).
+    No validation happens here (see :func:`closure_nn.physics.checks.check_conditions`).
 
     >>> c = make_conditions(vsl=[0.1, 0.2], vsg=2.0, D=0.05)
     >>> tuple(c.shape), float(c.rhol[1])
@@ -141,7 +142,9 @@ def make_conditions(
     """
     vals = [_as_tensor(v) for v in (vsl, vsg, D, theta, roughness, rhol, rhog, mul, mug, sigma, g)]
     shape = broadcast_shape(*(v.shape for v in vals))
-    vals = [v.expand(shape).contiguous() for v in vals]
+    # a single value (a fluid property, g) stays one number seen through a stride-0 view: no memory
+    # per row (16 MB of a 1e6-row batch for sigma and g alone); arrays are made contiguous
+    vals = [v.expand(shape) if v.numel() == 1 else v.expand(shape).contiguous() for v in vals]
     return Conditions(*vals)
 
 

@@ -7,7 +7,8 @@ annular flow (frac_max = 1/2).
 Method
 ------
 The batch is solved in chunks of ``chunk`` states, the bracketing grid in smaller chunks of
-``grid_chunk`` states (memory bounded for any batch size); within a chunk:
+``grid_chunk`` states and the refinement in pieces of ``REFINE_CHUNK`` brackets (memory bounded
+for any batch size); within a chunk:
 
 1. Bracket: evaluate F on a fixed grid of ``n_grid`` points (log-spaced near the wall, cosine-
    clustered towards both ends) for all states at once; each sign change is a bracket.
@@ -60,6 +61,10 @@ MAX_ROOTS = 3
 #: operation over threads above 32,768 elements) and keeps a 1e6-state all-roots solve under
 #: 450 MB peak (benchmarks/README.md, 2026-12-04)
 DEFAULT_CHUNK = 65536
+#: brackets refined at a time: a chunk of 65,536 states has ~72,000 brackets, whose refinement
+#: held ~60 MB at once (the residual's temporaries and the iteration's state); in pieces of 49,152
+#: each operation still splits over 2 threads (above 32,768 elements) (benchmarks/README.md, 2026-12-04)
+REFINE_CHUNK = 49152
 #: states per chunk of the bracketing grid: a chunk's (GRID_CHUNK, n_grid) temporaries stay in
 #: cache (benchmarks/README.md)
 GRID_CHUNK = 4096
@@ -315,9 +320,10 @@ def _roots_batch(cond: Conditions, E: torch.Tensor, closure: Callable, kind: str
     keep = rank < MAX_ROOTS
     rows, rank, lo, hi, flo, fhi = rows[keep], rank[keep], lo[keep], hi[keep], flo[keep], fhi[keep]
     roots = torch.full((b, MAX_ROOTS), float("nan"), dtype=torch.float64)
-    if rows.numel():
-        F_br = _subset_fn(cond[rows], E[rows], closure, kind)
-        roots[rows, rank] = _chandrupatla(F_br, lo, hi, flo, fhi, xtol, max_iter)
+    for i in range(0, rows.numel(), REFINE_CHUNK):  # brackets refine independently: pieces give the same roots
+        r, piece = rows[i:i + REFINE_CHUNK], slice(i, i + REFINE_CHUNK)
+        F_br = _subset_fn(cond[r], E[r], closure, kind)
+        roots[r, rank[piece]] = _chandrupatla(F_br, lo[piece], hi[piece], flo[piece], fhi[piece], xtol, max_iter)
     return RootSet(roots=roots, n_roots=n_roots, unresolved=unresolved)
 
 
