@@ -117,7 +117,10 @@ def main() -> None:
                 t = time.perf_counter()
                 outs[who] = run()
                 dt = time.perf_counter() - t
-            (times[who].append(dt) if i else first.__setitem__(who, dt))
+            if i == 0:
+                first[who] = dt  # compiling, or loading from inductor's cache
+            else:
+                times[who].append(dt)
     print(f"{a.what}, {a.threads} thread(s), first call then {a.repeats} alternating repeats (median; each in brackets)")
     print("| residual | first call s | median s | repeats s |\n|---|---|---|---|")
     for who in ways:
