@@ -19,8 +19,8 @@ import torch
 from scipy.optimize import brentq, minimize_scalar
 
 from closure_nn.closures.baseline import BaselineClosure
-from closure_nn.physics.conditions import FIELD_NAMES, make_conditions
 from closure_nn.physics import holdup_roots
+from closure_nn.physics.conditions import FIELD_NAMES, make_conditions
 from closure_nn.physics.holdup_roots import find_roots, solve_separated
 from closure_nn.physics.local_state import local_state
 from closure_nn.physics.momentum import combined_residual, shear_stresses

@@ -178,8 +178,7 @@ def _chandrupatla(F: Callable, a: torch.Tensor, b: torch.Tensor, fa: torch.Tenso
         t = torch.minimum(1 - tlim, torch.maximum(tlim, t)).clamp(0.0, 1.0)
         if bool(done.any()):
             # positions gathered with index_select: a boolean mask per tensor (its own nonzero each)
-            # costs ~15x more per value
-            # (benchmarks/bench_op_costs.py)
+            # costs ~15x more per value (benchmarks/bench_op_costs.py)
             fin, keep = done.nonzero().squeeze(1), (~done).nonzero().squeeze(1)
             out.index_put_((act.index_select(0, fin),), xm.index_select(0, fin))
             act, a, fa, b, fb, c, fc, t, xm = (v.index_select(0, keep) for v in (act, a, fa, b, fb, c, fc, t, xm))
